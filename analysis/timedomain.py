@@ -1,0 +1,252 @@
+"""Range profiles, frequency windows and time gating of band-pass VNA sweeps.
+
+Conventions (DESIGN.md sections 2, 3.3, 3.4):
+
+* Sweeps are complex arrays with frequency on the LAST axis and any leading shape
+  (polarization, angle, repeat, ...); every function is vectorised over the leading axes.
+* Frequencies in Hz, uniform, f_n = f0 + n df with f0 > 0 (band-pass).
+* Engineering time factor exp(+j w t): an echo at one-way range r (from the VNA reference
+  plane) is exp(-j 2 k r), k = 2 pi f / c0. The inverse FFT over frequency puts it at
+  t = 2 r / c0, i.e. at range r on the axis r = c0 t / 2, which spans [0, c0 / (2 df))
+  (the unambiguous range) and wraps around circularly; zero padding samples it finer.
+* Ranges in metres.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.fft
+import scipy.signal.windows as sw
+
+from analysis.constants import C0
+from analysis.errors import InputError
+
+WINDOWS = ("kaiser", "hann", "rect")
+DEFAULT_EDGE_FRACTION = 0.2  # each soft gate edge is 20 % of the span wide (-6 dB points at the span ends)
+
+
+# --------------------------------------------------------------------------- grid checks
+
+def uniform_step_hz(frequency_hz, path=None) -> float:
+    """Frequency step df in Hz of a uniform, increasing band-pass grid.
+
+    Raises InputError (naming ``path``) for fewer than 2 points, a non-finite, non-positive
+    or non-increasing grid, or one whose largest deviation from f0 + n df exceeds 1e-6 df.
+    """
+    f = np.asarray(frequency_hz, dtype=float).ravel()
+    if f.size < 2:
+        raise InputError(f"frequency grid needs at least 2 points for time-domain work, got {f.size}", path)
+    if not np.all(np.isfinite(f)):
+        raise InputError("frequency grid contains non-finite values", path)
+    if f[0] <= 0:
+        raise InputError(f"band-pass time domain needs f_start > 0 Hz, got {f[0]:g} Hz", path)
+    steps = np.diff(f)
+    if np.any(steps <= 0):
+        i = int(np.argmax(steps <= 0))
+        raise InputError(
+            f"frequency grid is not increasing: point {i + 1} ({f[i + 1] / 1e9:.9g} GHz) "
+            f"follows {f[i] / 1e9:.9g} GHz", path)
+    df = (f[-1] - f[0]) / (f.size - 1)
+    dev = f - (f[0] + df * np.arange(f.size))
+    i = int(np.argmax(np.abs(dev)))
+    if abs(dev[i]) > 1e-6 * df:
+        raise InputError(
+            f"frequency grid is not uniform (needed for time gating): largest deviation "
+            f"{dev[i]:.6g} Hz ({abs(dev[i]) / df:.3g} of the step {df:.6g} Hz) at point {i} "
+            f"({f[i] / 1e9:.9g} GHz)", path)
+    return float(df)
+
+
+def resolution_m(frequency_hz) -> float:
+    """Down-range resolution c0 / (2 B) in m, with B = f_last - f_first (the span of the samples).
+
+    (Some texts use B = N df, one step wider; the difference is 1/(N-1) relative.)
+    """
+    f = np.asarray(frequency_hz, dtype=float).ravel()
+    uniform_step_hz(f)
+    return C0 / (2.0 * (f[-1] - f[0]))
+
+
+def unambiguous_range_m(frequency_hz) -> float:
+    """Unambiguous (alias-free) range c0 / (2 df) in m."""
+    return C0 / (2.0 * uniform_step_hz(frequency_hz))
+
+
+def frequency_window(name, n, kaiser_beta=6.0) -> np.ndarray:
+    """Symmetric frequency-domain window of length n: "kaiser" (beta), "hann" or "rect"."""
+    n = int(n)
+    if n < 1:
+        raise InputError(f"window length must be at least 1, got {n}")
+    key = str(name).lower()
+    if key == "kaiser":
+        return sw.kaiser(n, float(kaiser_beta), sym=True)
+    if key == "hann":
+        return sw.hann(n, sym=True)
+    if key == "rect":
+        return sw.boxcar(n, sym=True)
+    raise InputError(f"unknown window {name!r}: choose one of {', '.join(WINDOWS)}")
+
+
+# --------------------------------------------------------------------------- internals
+
+def _checked(frequency_hz, s, pad_factor):
+    """(f, s, df, n, m): validated grid, sweep array, step, points, transform length."""
+    f = np.asarray(frequency_hz, dtype=float).ravel()
+    df = uniform_step_hz(f)
+    s = np.asarray(s)
+    if s.ndim == 0 or s.shape[-1] != f.size:
+        raise InputError(f"sweep has shape {s.shape}: its last axis must hold the {f.size} frequencies")
+    if int(pad_factor) != pad_factor or pad_factor < 1:
+        raise InputError(f"pad_factor must be an integer >= 1, got {pad_factor!r}")
+    return f, s, df, f.size, int(pad_factor) * f.size
+
+
+def _range_axis(df, m):
+    """Range axis (m,) in metres for an m-point inverse FFT of a grid with step df."""
+    return np.arange(m) * (C0 / (2.0 * df * m))
+
+
+def _gate_sweeps(s_windowed, gate, n):
+    """Zero-pad to len(gate), inverse FFT, multiply by gate, FFT back, keep the first n samples."""
+    m = gate.size
+    profile = scipy.fft.ifft(s_windowed, n=m, axis=-1, workers=-1)
+    return scipy.fft.fft(profile * gate, axis=-1, workers=-1)[..., :n]
+
+
+def _check_gate(span_m, edge_fraction):
+    if not np.isfinite(span_m) or span_m <= 0:
+        raise InputError(f"gate span must be a positive length in m, got {span_m!r}")
+    if not 0.0 <= edge_fraction <= 1.0:
+        raise InputError(f"edge_fraction must lie in [0, 1], got {edge_fraction!r}")
+
+
+# --------------------------------------------------------------------------- profiles and gates
+
+def range_profile(frequency_hz, s, window="kaiser", kaiser_beta=6.0, pad_factor=4):
+    """Band-pass range profile: (range_m (m,), profile (..., m) complex), m = pad_factor * n.
+
+    The sweep is windowed, zero-padded to m points and inverse-FFT'd over the last axis;
+    scaled by m / sum(window) so that a unit echo exp(-j 2 k r) peaks at magnitude ~1 at r.
+    """
+    f, s, df, n, m = _checked(frequency_hz, s, pad_factor)
+    w = frequency_window(window, n, kaiser_beta)
+    profile = scipy.fft.ifft(s * w, n=m, axis=-1, workers=-1) * (m / w.sum())
+    return _range_axis(df, m), profile
+
+
+def gate_shape(range_m, center_m, span_m, edge_m, period_m=None) -> np.ndarray:
+    """Flat-topped gate on a range axis, values in [0, 1].
+
+    1 for |d| <= (span - edge)/2, raised-cosine edges of width ``edge_m`` on each side, 0 beyond
+    (span + edge)/2, so the -6 dB (0.5) points sit at centre +/- span/2. d is the circular
+    (wrapped) distance r - centre with period ``period_m``, by default len(range_m) times the
+    axis step (the unambiguous range of an axis from ``range_profile``).
+    """
+    r = np.asarray(range_m, dtype=float)
+    _check_gate(span_m, edge_m / span_m if span_m > 0 else 0.0)
+    if period_m is None and r.size >= 2:
+        period_m = r.size * (r.ravel()[1] - r.ravel()[0])
+    d = r - center_m
+    if period_m:
+        d = (d + period_m / 2.0) % period_m - period_m / 2.0
+    d = np.abs(d)
+    inner = (span_m - edge_m) / 2.0
+    if edge_m <= 0:
+        return (d <= span_m / 2.0).astype(float)
+    x = np.clip((d - inner) / edge_m, 0.0, 1.0)
+    return 0.5 * (1.0 + np.cos(np.pi * x))
+
+
+def _gate_and_distortion(frequency_hz, s, center_m, span_m, window, kaiser_beta, pad_factor, edge_fraction):
+    f, s, df, n, m = _checked(frequency_hz, s, pad_factor)
+    _check_gate(span_m, edge_fraction)
+    if not gate_far_edge_ok(f, center_m, span_m):
+        raise InputError(
+            f"gate far edge {center_m + span_m / 2:.4g} m (centre {center_m:.4g} m + span/2) lies past the "
+            f"unambiguous range {C0 / (2 * df):.4g} m = c0/(2 df) of the {df / 1e6:.6g} MHz step: it would alias")
+    w = frequency_window(window, n, kaiser_beta)
+    gate = gate_shape(_range_axis(df, m), center_m, span_m, edge_fraction * span_m)
+    phase = np.exp(-2j * np.pi * f * (2.0 * center_m / C0))  # exp(-j 2 k r_centre)
+    distortion = _gate_sweeps(w * phase, gate, n) / phase
+    return s, w, gate, n, distortion
+
+
+def gate_distortion(frequency_hz, center_m, span_m, window="kaiser", kaiser_beta=6.0, pad_factor=4,
+                    edge_fraction=DEFAULT_EDGE_FRACTION) -> np.ndarray:
+    """Gated response (nf,) of an ideal unit point echo at the gate centre, times exp(+j 2 k r_centre).
+
+    It holds the window and the band-edge roll-off of the gate but not the range phase;
+    dividing a gated sweep by it removes them.
+    """
+    return _gate_and_distortion(frequency_hz, np.zeros(np.size(frequency_hz)), center_m, span_m,
+                                window, kaiser_beta, pad_factor, edge_fraction)[-1]
+
+
+def time_gate(frequency_hz, s, center_m, span_m, window="kaiser", kaiser_beta=6.0, pad_factor=4,
+              edge_fraction=DEFAULT_EDGE_FRACTION, normalise=True) -> np.ndarray:
+    """Time-gated sweeps (..., nf): keep the echoes within ``span_m`` around ``center_m`` (m).
+
+    Window the sweep, zero-pad to pad_factor * nf (1 = no padding), inverse FFT, multiply by
+    ``gate_shape`` (flat top, raised-cosine edges each ``edge_fraction * span_m`` wide), FFT back
+    and keep the first nf samples. With ``normalise`` the result is divided by
+    ``gate_distortion`` (computed once per call): an isolated point echo at the centre comes back
+    exactly, echoes elsewhere in the flat top nearly so; trim the band edges with
+    ``valid_band_mask``. Without it the window stays applied. InputError if the gate's far edge
+    passes the unambiguous range.
+    """
+    s, w, gate, n, distortion = _gate_and_distortion(frequency_hz, s, center_m, span_m, window,
+                                                     kaiser_beta, pad_factor, edge_fraction)
+    gated = _gate_sweeps(s * w, gate, n)
+    return gated / distortion if normalise else gated
+
+
+def valid_band_mask(frequency_hz, span_m, trim_hz=None) -> np.ndarray:
+    """Boolean mask (nf,) of the frequencies kept after gating.
+
+    Trims ``trim_hz`` from each band edge, by default one inverse gate duration c0 / (2 span_m)
+    (common practice). InputError if nothing remains.
+    """
+    f = np.asarray(frequency_hz, dtype=float).ravel()
+    uniform_step_hz(f)
+    if trim_hz is None:
+        if not np.isfinite(span_m) or span_m <= 0:
+            raise InputError(f"gate span must be a positive length in m, got {span_m!r}")
+        trim_hz = C0 / (2.0 * span_m)
+    if trim_hz < 0:
+        raise InputError(f"band-edge trim must not be negative, got {trim_hz!r} Hz")
+    tol = 1e-9 * (f[-1] - f[0])
+    mask = (f >= f[0] + trim_hz - tol) & (f <= f[-1] - trim_hz + tol)
+    if not mask.any():
+        raise InputError(
+            f"no valid band left: band {f[0] / 1e9:.6g}-{f[-1] / 1e9:.6g} GHz minus {trim_hz / 1e6:.6g} MHz "
+            f"at each edge (gate span {span_m:.4g} m): widen the span or the band")
+    return mask
+
+
+def gate_far_edge_ok(frequency_hz, center_m, span_m) -> bool:
+    """True when the gate's far edge, centre + span/2 (m), lies inside the unambiguous range."""
+    return bool(center_m + span_m / 2.0 < unambiguous_range_m(frequency_hz))
+
+
+def find_echo_range(frequency_hz, s, window="kaiser", kaiser_beta=6.0, pad_factor=8, search=None) -> float:
+    """Range in m of the strongest echo of the range profile (for auto-gating).
+
+    Several sweeps (leading axes) are combined by their RMS profile magnitude. ``search``
+    = (r_min, r_max) in m restricts the peak search. The peak is refined by a parabola through
+    |profile| at the peak bin and its two (circular) neighbours.
+    """
+    r, p = range_profile(frequency_hz, s, window, kaiser_beta, pad_factor)
+    mag = np.sqrt(np.mean(np.abs(p.reshape(-1, r.size)) ** 2, axis=0))
+    candidates = np.ones(r.size, dtype=bool)
+    if search is not None:
+        r_min, r_max = search
+        candidates = (r >= r_min) & (r <= r_max)
+        if not candidates.any():
+            raise InputError(f"echo search range {r_min:.4g}-{r_max:.4g} m holds no range bin "
+                             f"(profile covers 0-{r[-1]:.4g} m)")
+    i = int(np.flatnonzero(candidates)[np.argmax(mag[candidates])])
+    y0, y1, y2 = mag[i - 1], mag[i], mag[(i + 1) % r.size]
+    curv = y0 - 2.0 * y1 + y2
+    delta = 0.5 * (y0 - y2) / curv if curv < 0 else 0.0
+    dr = r[1] - r[0]
+    return float(((i + delta) * dr) % (r.size * dr))
