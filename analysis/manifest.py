@@ -1,0 +1,510 @@
+"""Campaign manifest (TOML): parse and check every key before any data is read.
+
+The manifest sits beside the data; file patterns are relative to its folder and may
+climb out of it (``../shared/empty_{pol}.s1p``), as labs share background sweeps.
+Every problem is an :class:`~analysis.errors.InputError` naming the manifest and,
+where it can be found, the line.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import InputError
+
+ROLES = ("background", "reference", "subject")
+POLARIZATIONS = ("HH", "VV", "HV", "VH")
+CO_POL = ("HH", "VV")
+CROSS_POL = ("HV", "VH")
+WINDOWS = ("kaiser", "hann", "rect")
+SHAPES = ("sphere", "plate", "disk", "cylinder", "dihedral", "trihedral", "table")
+SHAPE_KEYS = {
+    "sphere": ("radius_m",),
+    "plate": ("width_m", "height_m"),
+    "disk": ("radius_m",),
+    "cylinder": ("radius_m", "length_m", "orientation"),
+    "dihedral": ("fold_m", "face_m", "roll_deg"),
+    "trihedral": ("edge_m", "kind"),
+    "table": ("file",),
+}
+SHAPE_OPTIONAL_DEFAULTS = {"orientation": "upright", "roll_deg": 0.0, "kind": "triangular"}
+
+DEFAULT_SPAN_M = 0.6  # gate span when neither the manifest nor a size gives one
+SPAN_PER_SIZE = 2.0  # default gate span = 2 x the target's largest dimension
+
+_SECTION_KEYS = {
+    "campaign": {"name", "prototype", "date", "notes", "operator_notes"},
+    "chamber": {"range_m", "offset_m", "bistatic_deg", "name", "notes"},
+    "gate": {"span_m", "center_m", "window", "kaiser_beta", "pad_factor", "edge_fraction", "trim_ghz"},
+    "band": {"start_ghz", "stop_ghz"},
+}
+_TARGET_KEYS = {
+    "name", "role", "files", "parameter", "background", "baseline", "revision", "range_m",
+    "size_m", "gate_span_m", "angle_deg", "polarization", "calibrates", "shape", "specular_deg",
+    "notes", "date",
+} | {k for keys in SHAPE_KEYS.values() for k in keys}
+
+
+@dataclass(frozen=True)
+class Chamber:
+    range_m: float
+    offset_m: float = 0.0
+    bistatic_deg: float = 0.0
+
+
+@dataclass(frozen=True)
+class GateSettings:
+    """Campaign-wide gate settings; per-target span and centre are resolved in TargetSpec."""
+
+    span_m: float | None = None
+    center_m: float | None = None
+    window: str = "kaiser"
+    kaiser_beta: float = 6.0
+    pad_factor: int = 4
+    edge_fraction: float = 0.2
+    trim_hz: float | None = None
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    name: str
+    role: str
+    files: str
+    line: int | None
+    parameter: str | dict[str, str] | None = None
+    background: str | None = None
+    baseline: str | None = None
+    revision: str | None = None
+    range_m: float = 0.0
+    size_m: float | None = None
+    gate_span_m: float | None = None
+    angle_deg: float = 0.0
+    polarization: str = "VV"
+    calibrates: tuple[str, ...] | None = None
+    shape: dict[str, Any] | None = None
+    specular_deg: float = 0.0
+
+    @property
+    def is_check(self) -> bool:
+        """A subject that gives a shape is a check target (known theory)."""
+        return self.role == "subject" and self.shape is not None
+
+    def parameter_for(self, polarization: str, n_ports: int) -> str:
+        """S-parameter that carries this target's echo for one polarization."""
+        if isinstance(self.parameter, dict):
+            return self.parameter.get(polarization, "")
+        if self.parameter:
+            return self.parameter
+        return "S11" if n_ports == 1 else "S21"
+
+
+@dataclass(frozen=True)
+class Manifest:
+    path: Path
+    name: str
+    prototype: str
+    date: _dt.date | None
+    chamber: Chamber
+    gate: GateSettings
+    band_hz: tuple[float, float] | None
+    targets: tuple[TargetSpec, ...]
+    text: str = field(repr=False, default="")
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent
+
+    def target(self, name: str) -> TargetSpec:
+        for t in self.targets:
+            if t.name == name:
+                return t
+        raise KeyError(name)
+
+    def by_role(self, role: str) -> list[TargetSpec]:
+        return [t for t in self.targets if t.role == role]
+
+    def background_of(self, spec: TargetSpec) -> TargetSpec | None:
+        """The background a target is subtracted with (None when the manifest has none)."""
+        if spec.background:
+            return self.target(spec.background)
+        found = self.by_role("background")
+        return found[0] if found else None
+
+    def gate_center_m(self, spec: TargetSpec) -> float:
+        """Gate centre: [gate].center_m if given, else target range + chamber offset."""
+        if self.gate.center_m is not None:
+            return self.gate.center_m
+        return spec.range_m + self.chamber.offset_m
+
+    def gate_span_m(self, spec: TargetSpec) -> float:
+        """Gate span precedence: gate_span_m, [gate].span_m, 2 x size_m, DEFAULT_SPAN_M."""
+        if spec.gate_span_m is not None:
+            return spec.gate_span_m
+        if self.gate.span_m is not None:
+            return self.gate.span_m
+        size = spec.size_m if spec.size_m is not None else shape_size_m(spec.shape)
+        if size is not None:
+            return SPAN_PER_SIZE * size
+        return DEFAULT_SPAN_M
+
+
+def shape_size_m(shape: dict[str, Any] | None) -> float | None:
+    """Largest dimension of an analytic shape (m), or None when unknown."""
+    if not shape:
+        return None
+    kind = shape.get("shape")
+    try:
+        if kind in ("sphere", "disk"):
+            return 2.0 * float(shape["radius_m"])
+        if kind == "plate":
+            return float((shape["width_m"] ** 2 + shape["height_m"] ** 2) ** 0.5)
+        if kind == "cylinder":
+            return float(max(shape["length_m"], 2 * shape["radius_m"]))
+        if kind == "dihedral":
+            return float((shape["fold_m"] ** 2 + (2 * shape["face_m"]) ** 2) ** 0.5)
+        if kind == "trihedral":
+            return float(shape["edge_m"] * 2 ** 0.5)
+    except (KeyError, TypeError):
+        return None
+    return None
+
+
+def _target_lines(text: str) -> list[int]:
+    """1-based line numbers of each [[target]] header, in order."""
+    return [i + 1 for i, line in enumerate(text.splitlines()) if re.match(r"\s*\[\[\s*target\s*\]\]", line)]
+
+
+def _key_line(text: str, key: str, start: int | None) -> int | None:
+    """Line of the first ``key =`` at or after line ``start`` (1-based), else ``start``."""
+    lines = text.splitlines()
+    begin = (start or 1) - 1
+    for i in range(begin, len(lines)):
+        if i > begin and re.match(r"\s*\[", lines[i]):
+            break
+        if re.match(rf"\s*{re.escape(key)}\s*=", lines[i]):
+            return i + 1
+    return start
+
+
+def _section_line(text: str, section: str) -> int | None:
+    for i, line in enumerate(text.splitlines()):
+        if re.match(rf"\s*\[\s*{section}\s*\]", line):
+            return i + 1
+    return None
+
+
+class _Checker:
+    """Collects problems (or raises at the first) while the manifest is parsed."""
+
+    def __init__(self, path: Path, text: str, collect: bool):
+        self.path, self.text, self.collect = path, text, collect
+        self.problems: list[InputError] = []
+
+    def problem(self, message: str, line: int | None = None) -> None:
+        err = InputError(message, self.path, line)
+        if not self.collect:
+            raise err
+        self.problems.append(err)
+
+    def number(self, table: dict, key: str, where: str, line: int | None, *, default=None,
+               required=False, positive=False, nonnegative=False):
+        if key not in table:
+            if required:
+                self.problem(f"{where}: missing required key '{key}'", line)
+            return default
+        value = table[key]
+        kline = _key_line(self.text, key, line)
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            self.problem(f"{where}: '{key}' must be a number, got {value!r}", kline)
+            return default
+        value = float(value)
+        if value != value or value in (float("inf"), float("-inf")):
+            self.problem(f"{where}: '{key}' must be finite", kline)
+            return default
+        if positive and value <= 0:
+            self.problem(f"{where}: '{key}' must be positive, got {value:g}", kline)
+            return default
+        if nonnegative and value < 0:
+            self.problem(f"{where}: '{key}' must not be negative, got {value:g}", kline)
+            return default
+        return value
+
+    def string(self, table: dict, key: str, where: str, line: int | None, *, default=None,
+               required=False, choices=None):
+        if key not in table:
+            if required:
+                self.problem(f"{where}: missing required key '{key}'", line)
+            return default
+        value = table[key]
+        kline = _key_line(self.text, key, line)
+        if not isinstance(value, str) or not value.strip():
+            self.problem(f"{where}: '{key}' must be a non-empty string, got {value!r}", kline)
+            return default
+        if choices is not None and value not in choices:
+            self.problem(f"{where}: '{key}' = {value!r} is not one of {', '.join(choices)}", kline)
+            return default
+        return value
+
+
+def read_manifest_text(path: Path) -> str:
+    """Manifest text, UTF-8 (a byte-order mark is accepted); InputError otherwise."""
+    try:
+        if path.is_dir():
+            raise InputError("is a directory, expected a manifest file", path)
+        raw = path.read_bytes()
+    except InputError:
+        raise
+    except FileNotFoundError:
+        raise InputError("manifest not found", path) from None
+    except OSError as exc:
+        raise InputError(f"cannot read manifest: {exc.strerror or exc}", path) from None
+    if not raw.strip():
+        raise InputError("manifest is empty", path)
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise InputError("manifest is not UTF-8 text", path, line) from None
+
+
+def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | None, list[InputError]]:
+    """Parse and check a manifest.
+
+    With ``collect=False`` the first problem raises :class:`InputError`; with
+    ``collect=True`` all problems found are returned (the manifest is None when it
+    cannot be built at all).
+    """
+    path = Path(path)
+    text = read_manifest_text(path)
+    check = _Checker(path, text, collect)
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        msg = str(exc)
+        m = re.search(r"at line (\d+)", msg)
+        line = int(m.group(1)) if m else None
+        msg = re.sub(r"\s*\(at line \d+, column \d+\)", "", msg)
+        check.problem(f"invalid TOML: {msg}", line)
+        return None, check.problems
+
+    for key in doc:
+        if key not in _SECTION_KEYS and key != "target":
+            check.problem(f"unknown section or key '{key}'", _section_line(text, key) or _key_line(text, key, 1))
+    for section, allowed in _SECTION_KEYS.items():
+        table = doc.get(section, {})
+        if not isinstance(table, dict):
+            check.problem(f"'{section}' must be a table", _key_line(text, section, 1))
+            continue
+        sline = _section_line(text, section)
+        for key in table:
+            if key not in allowed:
+                check.problem(f"[{section}]: unknown key '{key}'", _key_line(text, key, sline))
+
+    campaign = doc.get("campaign", {}) if isinstance(doc.get("campaign", {}), dict) else {}
+    cline = _section_line(text, "campaign")
+    if "campaign" not in doc:
+        check.problem("missing required section [campaign]", None)
+    name = check.string(campaign, "name", "[campaign]", cline, required="campaign" in doc, default="")
+    prototype = check.string(campaign, "prototype", "[campaign]", cline, default=None) or name
+    date = campaign.get("date")
+    if date is not None and not isinstance(date, _dt.date):
+        check.problem(f"[campaign]: 'date' must be a TOML date such as 2026-11-20, got {date!r}",
+                      _key_line(text, "date", cline))
+        date = None
+    if isinstance(date, _dt.datetime):
+        date = date.date()
+
+    chamber_t = doc.get("chamber", {}) if isinstance(doc.get("chamber", {}), dict) else {}
+    hline = _section_line(text, "chamber")
+    if "chamber" not in doc:
+        check.problem("missing required section [chamber]", None)
+    chamber = Chamber(
+        range_m=check.number(chamber_t, "range_m", "[chamber]", hline, required="chamber" in doc,
+                             positive=True, default=1.0),
+        offset_m=check.number(chamber_t, "offset_m", "[chamber]", hline, default=0.0),
+        bistatic_deg=check.number(chamber_t, "bistatic_deg", "[chamber]", hline, default=0.0),
+    )
+
+    gate_t = doc.get("gate", {}) if isinstance(doc.get("gate", {}), dict) else {}
+    gline = _section_line(text, "gate")
+    trim_ghz = check.number(gate_t, "trim_ghz", "[gate]", gline, nonnegative=True)
+    pad = check.number(gate_t, "pad_factor", "[gate]", gline, default=4, positive=True)
+    gate = GateSettings(
+        span_m=check.number(gate_t, "span_m", "[gate]", gline, positive=True),
+        center_m=check.number(gate_t, "center_m", "[gate]", gline, positive=True),
+        window=check.string(gate_t, "window", "[gate]", gline, default="kaiser", choices=WINDOWS),
+        kaiser_beta=check.number(gate_t, "kaiser_beta", "[gate]", gline, default=6.0, nonnegative=True),
+        pad_factor=max(1, int(pad)),
+        edge_fraction=check.number(gate_t, "edge_fraction", "[gate]", gline, default=0.2, positive=True),
+        trim_hz=None if trim_ghz is None else trim_ghz * 1e9,
+    )
+    if not 0 < gate.edge_fraction <= 1:
+        check.problem("[gate]: 'edge_fraction' must lie in (0, 1]", _key_line(text, "edge_fraction", gline))
+
+    band_t = doc.get("band", {}) if isinstance(doc.get("band", {}), dict) else {}
+    bline = _section_line(text, "band")
+    band_hz = None
+    if band_t:
+        start = check.number(band_t, "start_ghz", "[band]", bline, required=True, positive=True)
+        stop = check.number(band_t, "stop_ghz", "[band]", bline, required=True, positive=True)
+        if start is not None and stop is not None:
+            if stop <= start:
+                check.problem(f"[band]: stop_ghz ({stop:g}) must exceed start_ghz ({start:g})", bline)
+            else:
+                band_hz = (start * 1e9, stop * 1e9)
+
+    targets = _parse_targets(doc, text, check, chamber)
+    manifest = Manifest(path=path, name=name or "", prototype=prototype or "", date=date,
+                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text)
+    _check_relations(manifest, check)
+    return manifest, check.problems
+
+
+def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> list[TargetSpec]:
+    raw_targets = doc.get("target", [])
+    lines = _target_lines(text)
+    if not isinstance(raw_targets, list) or not all(isinstance(t, dict) for t in raw_targets):
+        check.problem("'target' must be an array of tables ([[target]])", lines[0] if lines else None)
+        return []
+    if not raw_targets:
+        check.problem("no [[target]] defined", None)
+    targets: list[TargetSpec] = []
+    seen: dict[str, int | None] = {}
+    for i, t in enumerate(raw_targets):
+        line = lines[i] if i < len(lines) else None
+        label = f"target {t.get('name', '#' + str(i + 1))!s}"
+        for key in t:
+            if key not in _TARGET_KEYS:
+                check.problem(f"{label}: unknown key '{key}'", _key_line(text, key, line))
+        name = check.string(t, "name", label, line, required=True)
+        role = check.string(t, "role", label, line, required=True, choices=ROLES)
+        files = check.string(t, "files", label, line, required=True)
+        if name is None or role is None or files is None:
+            continue
+        if name in seen:
+            check.problem(f"duplicate target name '{name}' (first defined at line {seen[name]})", line)
+            continue
+        seen[name] = line
+        param = t.get("parameter")
+        if param is not None:
+            param = _check_parameter(param, label, check, _key_line(text, "parameter", line))
+        pol = check.string(t, "polarization", label, line, default="VV")
+        if pol is not None and pol.upper() not in POLARIZATIONS:
+            check.problem(f"{label}: polarization {pol!r} is not one of HH, VV, HV, VH",
+                          _key_line(text, "polarization", line))
+            pol = "VV"
+        calibrates = t.get("calibrates")
+        if calibrates is not None:
+            if not isinstance(calibrates, list) or not all(
+                    isinstance(c, str) and c.upper() in POLARIZATIONS for c in calibrates):
+                check.problem(f"{label}: 'calibrates' must be a list of HH, VV, HV, VH",
+                              _key_line(text, "calibrates", line))
+                calibrates = None
+            else:
+                calibrates = tuple(c.upper() for c in calibrates)
+        shape = _parse_shape(t, label, check, text, line)
+        if role == "reference" and shape is None and "shape" not in t:
+            check.problem(f"{label}: a reference needs a 'shape' and its dimensions", line)
+        for key in ("background", "baseline", "revision"):
+            if key in t and not isinstance(t[key], str):
+                check.problem(f"{label}: '{key}' must be a string", _key_line(text, key, line))
+        targets.append(TargetSpec(
+            name=name, role=role, files=files, line=line, parameter=param,
+            background=t.get("background") if isinstance(t.get("background"), str) else None,
+            baseline=t.get("baseline") if isinstance(t.get("baseline"), str) else None,
+            revision=t.get("revision") if isinstance(t.get("revision"), str) else None,
+            range_m=check.number(t, "range_m", label, line, default=chamber.range_m, positive=True),
+            size_m=check.number(t, "size_m", label, line, positive=True),
+            gate_span_m=check.number(t, "gate_span_m", label, line, positive=True),
+            angle_deg=check.number(t, "angle_deg", label, line, default=0.0),
+            polarization=(pol or "VV").upper(),
+            calibrates=calibrates,
+            shape=shape,
+            specular_deg=check.number(t, "specular_deg", label, line, default=0.0),
+        ))
+    return targets
+
+
+def _check_parameter(param, label, check: _Checker, line):
+    pattern = re.compile(r"S([1-4])([1-4])$")
+    if isinstance(param, str):
+        if not pattern.match(param.upper()):
+            check.problem(f"{label}: parameter {param!r} is not an S-parameter such as S11 or S21", line)
+            return None
+        return param.upper()
+    if isinstance(param, dict):
+        out = {}
+        for pol, p in param.items():
+            if pol.upper() not in POLARIZATIONS or not isinstance(p, str) or not pattern.match(p.upper()):
+                check.problem(f"{label}: parameter table entry {pol} = {p!r} is not POL = \"Sij\"", line)
+                return None
+            out[pol.upper()] = p.upper()
+        return out
+    check.problem(f"{label}: parameter must be a string like \"S21\" or a table of polarizations", line)
+    return None
+
+
+def _parse_shape(t: dict, label: str, check: _Checker, text: str, line: int | None):
+    if "shape" not in t:
+        dims = [k for k in t if k in {"radius_m", "width_m", "height_m", "length_m", "fold_m", "face_m", "edge_m"}]
+        if dims:
+            check.problem(f"{label}: '{dims[0]}' given without a 'shape'", _key_line(text, dims[0], line))
+        return None
+    kind = t["shape"]
+    sline = _key_line(text, "shape", line)
+    if not isinstance(kind, str) or kind not in SHAPES:
+        check.problem(f"{label}: unknown shape {kind!r} (known: {', '.join(SHAPES)})", sline)
+        return None
+    spec: dict[str, Any] = {"shape": kind}
+    for key in SHAPE_KEYS[kind]:
+        if key not in t and key in SHAPE_OPTIONAL_DEFAULTS:
+            spec[key] = SHAPE_OPTIONAL_DEFAULTS[key]
+            continue
+        if key in ("orientation", "kind", "file"):
+            choices = {"orientation": ("upright", "flat"), "kind": ("triangular", "square")}.get(key)
+            value = check.string(t, key, label, line, required=True, choices=choices)
+        else:
+            value = check.number(t, key, label, line, required=True,
+                                 positive=key != "roll_deg")
+        if value is None:
+            return None
+        spec[key] = value
+    if kind == "table":
+        spec["file"] = str((check.path.parent / spec["file"]))
+    return spec
+
+
+def _check_relations(m: Manifest, check: _Checker) -> None:
+    names = {t.name: t for t in m.targets}
+    backgrounds = m.by_role("background")
+    if m.targets and not backgrounds:
+        check.problem("no background target (role = \"background\"): background subtraction needs one", None)
+    for t in m.targets:
+        if t.role != "background":
+            if t.background is not None:
+                bg = names.get(t.background)
+                if bg is None:
+                    check.problem(f"target {t.name}: background '{t.background}' is not a target", t.line)
+                elif bg.role != "background":
+                    check.problem(f"target {t.name}: background '{t.background}' has role {bg.role}, not background", t.line)
+            elif len(backgrounds) > 1:
+                check.problem(f"target {t.name}: several backgrounds exist; name one with 'background'", t.line)
+        elif t.background is not None:
+            check.problem(f"target {t.name}: a background cannot have a 'background'", t.line)
+        if t.baseline is not None:
+            base = names.get(t.baseline)
+            if t.role != "subject":
+                check.problem(f"target {t.name}: only a subject can have a 'baseline'", t.line)
+            elif base is None:
+                check.problem(f"target {t.name}: baseline '{t.baseline}' is not a target", t.line)
+            elif base.role != "subject":
+                check.problem(f"target {t.name}: baseline '{t.baseline}' is a {base.role}, not a subject", t.line)
+            elif base.name == t.name:
+                check.problem(f"target {t.name}: a subject cannot be its own baseline", t.line)
+        if t.calibrates is not None and t.role != "reference":
+            check.problem(f"target {t.name}: only a reference has 'calibrates'", t.line)

@@ -1,0 +1,1 @@
+"""cloakrcs dashboard (Dash): reads stored results, never redoes physics."""
