@@ -1,0 +1,151 @@
+"""Background subtraction, drift correction, substitution calibration and the clutter/noise floor.
+
+Arrays are complex numpy arrays with frequency on the last axis, leading axes
+(polarization, angle[, repeat]). Ranges in metres, frequencies in Hz, engineering
+exp(+j w t). See DESIGN.md section 3, steps 2, 5 and 7.
+
+Calibration (substitution): with D the gated, background-subtracted sweep and A the
+complex scattering amplitude (m), D_ref = G' A_ref exp(-j 2 k R_ref) / R_ref^2 where G'
+holds the system response and the reference-plane offset. The factor
+K = A_ref,theory / (D_ref R_ref^2 exp(+j 2 k R_ref)) then gives any target's amplitude as
+A_t = K D_t R_t^2 exp(+j 2 k R_t), which is DESIGN.md's
+A_ref * D_t / D_ref * (R_t / R_ref)^2 * exp(+j 2 k (R_t - R_ref)).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.ndimage import uniform_filter1d
+
+from . import timedomain
+from .constants import C0
+
+FLOOR_SMOOTHING_CELLS = 5  # floor averaged over a frequency window this many inverse gate durations wide
+DRIFT_LEVEL_DB = 20.0  # drift fit uses profile bins outside the gate within this many dB of their peak
+
+
+def mean_over_repeats(sweeps: np.ndarray, axis: int = -2) -> tuple[np.ndarray, np.ndarray, int]:
+    """(complex mean over the repeat axis, variance of that mean per point, repeat count).
+
+    The variance of the mean is sum |x - mean|^2 / (N (N - 1)); zero for a single sweep.
+    """
+    n = sweeps.shape[axis]
+    mean = sweeps.mean(axis=axis)
+    if n < 2:
+        return mean, np.zeros(mean.shape), n
+    dev = sweeps - np.expand_dims(mean, axis)
+    var_mean = np.sum(np.abs(dev) ** 2, axis=axis) / (n * (n - 1))
+    return mean, var_mean, n
+
+
+def background_at_angles(bg_mean: np.ndarray, bg_angles, target_angles) -> np.ndarray:
+    """Background (pol, angle, f) at the target's angles: the same angle, or its single sweep."""
+    if bg_mean.shape[1] == 1:
+        return np.repeat(bg_mean, len(target_angles), axis=1)
+    from .campaign import wrap_angle_deg
+
+    keys = {round(float(a), 6): i for i, a in enumerate(wrap_angle_deg(bg_angles))}
+    idx = [keys[round(float(a), 6)] for a in wrap_angle_deg(target_angles)]
+    return bg_mean[:, idx, :]
+
+
+def drift_aligned_background(frequency_hz, target, background, center_m, span_m, window="kaiser",
+                             kaiser_beta=6.0, pad_factor=4) -> np.ndarray:
+    """Background scaled by the complex gain that best maps it onto the target outside the gate.
+
+    Per sweep, alpha = sum(T B*) / sum(|B|^2) over range-profile bins outside the target's
+    gate (with a guard of half a span) where the background is within DRIFT_LEVEL_DB of its
+    strongest echo there (coupling, chamber echoes): a least-squares fit of the system's gain
+    and phase drift between the two sweeps. Returns alpha * background.
+    """
+    r, pt = timedomain.range_profile(frequency_hz, target, window, kaiser_beta, pad_factor)
+    _, pb = timedomain.range_profile(frequency_hz, background, window, kaiser_beta, pad_factor)
+    period = r[-1] + (r[1] - r[0])
+    d = np.abs((r - center_m + period / 2) % period - period / 2)
+    outside = d > span_m
+    mag = np.abs(pb) * outside
+    strong = mag >= mag.max(axis=-1, keepdims=True) * 10 ** (-DRIFT_LEVEL_DB / 20)
+    strong &= outside
+    num = np.sum(pt * np.conj(pb) * strong, axis=-1)
+    den = np.sum(np.abs(pb) ** 2 * strong, axis=-1)
+    alpha = np.where(den > 0, num / np.where(den > 0, den, 1), 1.0)
+    return alpha[..., None] * background
+
+
+def range_phase(frequency_hz, range_m) -> np.ndarray:
+    """exp(+j 2 k R): moves a sweep's phase reference from the VNA plane to range R."""
+    return np.exp(2j * (2 * np.pi * np.asarray(frequency_hz) / C0) * range_m)
+
+
+def calibration_factor(frequency_hz, ref_gated, ref_theory, range_ref_m) -> np.ndarray:
+    """K (..., nf) = A_theory / (D_ref R_ref^2 exp(+j 2 k R_ref)); A_t = K D_t R_t^2 exp(+j 2 k R_t)."""
+    return ref_theory / (ref_gated * range_ref_m ** 2 * range_phase(frequency_hz, range_ref_m))
+
+
+def calibrated_amplitude(frequency_hz, factor, gated, range_m) -> np.ndarray:
+    """Complex amplitude A (m) of a target at range_m from its gated sweeps and K (broadcast)."""
+    return factor * gated * (range_m ** 2) * range_phase(frequency_hz, range_m)
+
+
+def geometric_mean_factor(k_hh, k_vv) -> np.ndarray:
+    """sqrt(K_HH K_VV) with the phase halfway between the two (unwrapped over frequency).
+
+    Calibrates HV/VH without a cross-polarized reference: an approximation, flagged as such.
+    """
+    mag = np.sqrt(np.abs(k_hh) * np.abs(k_vv))
+    phase = 0.5 * (np.unwrap(np.angle(k_hh)) + np.unwrap(np.angle(k_vv)))
+    return mag * np.exp(1j * phase)
+
+
+def noise_gain(frequency_hz, center_m, span_m, **gate) -> np.ndarray:
+    """Gated, normalised output power (nf,) per unit input noise variance at each frequency.
+
+    The gate is linear: applying it to the identity gives its matrix H, and white noise of
+    variance s^2 per point leaves s^2 sum_n |H(f, n)|^2 at frequency f. Exact, no sampling.
+    """
+    n = len(frequency_hz)
+    h = timedomain.time_gate(frequency_hz, np.eye(n, dtype=complex), center_m, span_m, **gate)
+    return np.sum(np.abs(h) ** 2, axis=0)
+
+
+def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_beta=6.0) -> np.ndarray:
+    """Per-point noise variance (pol,) of sweeps (pol, ..., nf) without repeats: a rough estimate.
+
+    The median of |profile|^2 over all range bins, sweeps and angles (echoes occupy few bins) is
+    ln 2 times the noise power per bin of complex Gaussian noise; a bin of the window-normalised
+    profile holds s^2 sum(w^2) / sum(w)^2 of it.
+    """
+    w = timedomain.frequency_window(window, sweeps.shape[-1], kaiser_beta)
+    # unpadded profile bins hold sum(w s e^(..)) / sum(w)
+    _, p = timedomain.range_profile(frequency_hz, sweeps, window, kaiser_beta, pad_factor=1)
+    power = np.abs(p.reshape(p.shape[0], -1)) ** 2
+    per_bin = np.median(power, axis=-1) / np.log(2)
+    return per_bin * w.sum() ** 2 / np.sum(w ** 2)
+
+
+def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tuple[np.ndarray, str]:
+    """Per-sweep gated noise power (pol, nf) seen in one sweep, and how it was estimated.
+
+    With repeated background sweeps (pol, angle, repeat, nf): the gated deviations from their
+    mean, sum |g(B_r) - g(B_mean)|^2 / (N - 1), averaged over angles (the chamber floor does not
+    depend on the turntable angle). Without repeats: the noise variance from the profile
+    (:func:`noise_variance_from_profile`) times :func:`noise_gain`. Smoothed over a frequency
+    window FLOOR_SMOOTHING_CELLS inverse gate durations wide.
+    """
+    f = np.asarray(frequency_hz)
+    n_rep = bg_sweeps.shape[2]
+    if n_rep >= 2:
+        gated = timedomain.time_gate(f, bg_sweeps, center_m, span_m, **gate)
+        dev = gated - gated.mean(axis=2, keepdims=True)
+        power = np.sum(np.abs(dev) ** 2, axis=2) / (n_rep - 1)
+        power = power.mean(axis=1)
+        how = f"repeated background sweeps ({n_rep} repeats x {bg_sweeps.shape[1]} angle(s))"
+    else:
+        var = noise_variance_from_profile(f, bg_sweeps[:, :, 0, :], gate.get("window", "kaiser"),
+                                          gate.get("kaiser_beta", 6.0))
+        power = var[:, None] * noise_gain(f, center_m, span_m, **gate)[None, :]
+        how = "gated noise estimated from the background's range profile (no repeats: rough)"
+    cell_hz = C0 / (2 * span_m)
+    width = max(1, int(round(FLOOR_SMOOTHING_CELLS * cell_hz / (f[1] - f[0]))))
+    power = uniform_filter1d(power, size=min(width, power.shape[-1]), axis=-1, mode="nearest")
+    return power, how

@@ -1,0 +1,75 @@
+"""`cloakrcs process MANIFEST --out DIR`: calibrated RCS, checks, floor and cloak metrics."""
+
+from __future__ import annotations
+
+import sys
+
+from ..errors import InputError
+from ..metrics import parse_sector
+
+
+def add_processing_options(p) -> None:
+    """Options shared by `process` and `process-many`."""
+    p.add_argument("--threshold-db", type=float, default=10.0, help="reduction threshold for the bandwidth (dB)")
+    p.add_argument("--floor-margin-db", type=float, default=10.0,
+                   help="points less than this above the floor are floor-limited (dB)")
+    p.add_argument("--check-tolerance-db", type=float, default=1.0, help="check-target tolerance (dB)")
+    p.add_argument("--sector-deg", help="angular sector START:STOP in degrees, wrapped to (-180, 180]")
+    p.add_argument("--band-ghz", help="reporting band START:STOP in GHz (default: the manifest's [band])")
+    p.add_argument("--trim-ghz", type=float, help="band-edge trim after gating (default: c0/(2 span))")
+    p.add_argument("--window", choices=("kaiser", "hann", "rect"), help="override the manifest's window")
+    p.add_argument("--kaiser-beta", type=float, help="override the manifest's Kaiser beta")
+    p.add_argument("--auto-gate", action="store_true", help="align gate centres on the reference's echo")
+    p.add_argument("--align-angles", action="store_true",
+                   help="resample each subject onto its baseline's angles by the estimated mounting offset")
+    p.add_argument("--drift-correction", action="store_true",
+                   help="fit the background's gain and phase to each sweep outside the gate before subtracting")
+    p.add_argument("--strict", action="store_true", help="exit with status 3 when a check target fails")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--store", metavar="URL", help="results store (default: CLOAKRCS_STORE or the per-user SQLite file)")
+    p.add_argument("--no-store", action="store_true", help="do not record the run in the store")
+
+
+def register(sub) -> None:
+    p = sub.add_parser("process", help="process a campaign into calibrated RCS and cloak metrics")
+    p.add_argument("manifest", help="campaign manifest (TOML)")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--no-report", action="store_true", help="skip report.html")
+    add_processing_options(p)
+    p.set_defaults(func=run)
+
+
+def settings_from_args(args):
+    from ..process import ProcessSettings
+
+    band = None
+    if args.band_ghz:
+        try:
+            lo, hi = (float(x) * 1e9 for x in args.band_ghz.split(":"))
+        except ValueError:
+            raise InputError(f"--band-ghz {args.band_ghz!r}: expected START:STOP in GHz") from None
+        band = (lo, hi)
+    return ProcessSettings(
+        threshold_db=args.threshold_db, floor_margin_db=args.floor_margin_db,
+        check_tolerance_db=args.check_tolerance_db,
+        sector_deg=parse_sector(args.sector_deg) if args.sector_deg else None,
+        auto_gate=args.auto_gate, align_angles=args.align_angles, drift_correction=args.drift_correction,
+        trim_hz=None if args.trim_ghz is None else args.trim_ghz * 1e9, band_hz=band,
+        window=args.window, kaiser_beta=args.kaiser_beta)
+
+
+def run(args) -> int:
+    from ..pipeline import run_process
+
+    settings = settings_from_args(args)
+    outcome = run_process(args.manifest, args.out, settings, store_url=None if args.no_store else (args.store or ""),
+                          report=not args.no_report, quiet=args.quiet or not sys.stderr.isatty())
+    for w in outcome.result.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    failed = [c for c in outcome.result.checks if not c["passed"]]
+    for c in failed:
+        print(f"check FAILED: {c['target']} {c['polarization']}: max error {c['max_error_db']:.2f} dB "
+              f"> tolerance {c['tolerance_db']:g} dB", file=sys.stderr)
+    if not args.quiet:
+        print(outcome.describe())
+    return 3 if (failed and args.strict) else 0

@@ -1,0 +1,227 @@
+"""Cloak metrics: reduction, band and sector averages, bandwidth, worst angle, bounds, uncertainty.
+
+Conventions (DESIGN.md section 3.8): sigma arrays are linear m^2 shaped
+(angle, frequency); reduction = 10 log10(sigma_baseline / sigma_subject) dB, positive
+means less scattering. Band and sector averages sum linear sigma first, then take dB.
+Angles are wrapped to (-180, 180]; a sector START > STOP crosses +/-180.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .campaign import wrap_angle_deg
+from .errors import InputError
+
+DB = 10.0 / np.log(10.0)  # 4.3429...: dB per neper of power
+BOUNDS = ("none", "lower", "upper", "undetermined")
+
+
+def sector_mask(angle_deg, sector_deg: tuple[float, float] | None) -> np.ndarray:
+    """Angles inside START:STOP (wrapped to (-180, 180]); START > STOP crosses +/-180; None = all."""
+    a = wrap_angle_deg(angle_deg)
+    if sector_deg is None:
+        return np.ones(a.shape, bool)
+    lo, hi = (float(wrap_angle_deg(x)) for x in sector_deg)
+    if sector_deg[1] - sector_deg[0] >= 360:
+        return np.ones(a.shape, bool)
+    if lo <= hi:
+        return (a >= lo - 1e-9) & (a <= hi + 1e-9)
+    return (a >= lo - 1e-9) | (a <= hi + 1e-9)
+
+
+def parse_sector(text: str) -> tuple[float, float]:
+    """'START:STOP' in degrees (e.g. '-30:30', '150:-150')."""
+    try:
+        start, stop = (float(x) for x in text.split(":"))
+    except ValueError:
+        raise InputError(f"--sector-deg {text!r}: expected START:STOP in degrees, e.g. -30:30") from None
+    return start, stop
+
+
+def point_bounds(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> np.ndarray:
+    """Per-point bound label: lower (subject at floor), upper (baseline at floor), undetermined (both)."""
+    out = np.full(np.shape(subject_limited), "none", dtype=object)
+    out[subject_limited & ~baseline_limited] = "lower"
+    out[~subject_limited & baseline_limited] = "upper"
+    out[subject_limited & baseline_limited] = "undetermined"
+    return out
+
+
+def aggregate_bound(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> str:
+    """Bound of a band/sector metric from the points in it (DESIGN.md section 3.7)."""
+    s, b = bool(np.any(subject_limited)), bool(np.any(baseline_limited))
+    return {(False, False): "none", (True, False): "lower", (False, True): "upper"}.get((s, b), "undetermined")
+
+
+def bounded_sigma(sigma: np.ndarray, floor: np.ndarray, margin_db: float) -> tuple[np.ndarray, np.ndarray]:
+    """(sigma with floor-limited points replaced by floor + margin, the floor-limited mask)."""
+    level = floor * 10 ** (margin_db / 10)
+    limited = sigma < level
+    return np.where(limited, level, sigma), limited
+
+
+def reduction_db(sigma_baseline, sigma_subject):
+    """10 log10(sigma_baseline / sigma_subject), dB (positive = less scattering)."""
+    return 10 * np.log10(np.asarray(sigma_baseline) / np.asarray(sigma_subject))
+
+
+def band_reduction_db(sigma_baseline, sigma_subject) -> float:
+    """Linear sums over every frequency and angle given, then dB."""
+    return float(10 * np.log10(np.sum(sigma_baseline) / np.sum(sigma_subject)))
+
+
+def sector_curve_db(sigma_baseline, sigma_subject) -> np.ndarray:
+    """R(f) = 10 log10(sum over angles of sigma_baseline / same of sigma_subject); input (angle, frequency)."""
+    return 10 * np.log10(np.sum(sigma_baseline, axis=0) / np.sum(sigma_subject, axis=0))
+
+
+@dataclass(frozen=True)
+class Bandwidth:
+    best_db: float
+    best_hz: float
+    width_hz: float
+    start_hz: float | None
+    stop_hz: float | None
+    truncated: bool
+    fractional: float
+
+
+def bandwidth_above(frequency_hz, curve_db, threshold_db: float) -> Bandwidth:
+    """Contiguous span around the best frequency where the curve >= threshold, edges interpolated.
+
+    Zero width when the best reduction is below the threshold; ``truncated`` when the span
+    reaches a band edge. Fractional bandwidth = span / midpoint of the span.
+    """
+    f = np.asarray(frequency_hz, float)
+    r = np.asarray(curve_db, float)
+    i = int(np.nanargmax(r))
+    best, fbest = float(r[i]), float(f[i])
+    if best < threshold_db:
+        return Bandwidth(best, fbest, 0.0, None, None, False, 0.0)
+    lo = i
+    while lo > 0 and r[lo - 1] >= threshold_db:
+        lo -= 1
+    hi = i
+    while hi < len(r) - 1 and r[hi + 1] >= threshold_db:
+        hi += 1
+    truncated = lo == 0 or hi == len(r) - 1
+    start = f[lo] if lo == 0 else _crossing(f[lo - 1], f[lo], r[lo - 1], r[lo], threshold_db)
+    stop = f[hi] if hi == len(r) - 1 else _crossing(f[hi], f[hi + 1], r[hi], r[hi + 1], threshold_db)
+    width = float(stop - start)
+    mid = 0.5 * (start + stop)
+    return Bandwidth(best, fbest, width, float(start), float(stop), bool(truncated), width / mid if mid else 0.0)
+
+
+def _crossing(f0, f1, r0, r1, level) -> float:
+    return float(f0 + (level - r0) * (f1 - f0) / (r1 - r0))
+
+
+def worst_angle(angle_deg, sigma_baseline, sigma_subject) -> tuple[float, float]:
+    """(angle, its band-averaged reduction) for the angle with the smallest one; input (angle, frequency)."""
+    per_angle = 10 * np.log10(np.sum(sigma_baseline, axis=1) / np.sum(sigma_subject, axis=1))
+    k = int(np.argmin(per_angle))
+    return float(np.asarray(angle_deg)[k]), float(per_angle[k])
+
+
+def interference_uncertainty_db(snr_db):
+    """Standard uncertainty (dB) of a power next to a random-phase interferer SNR dB below.
+
+    8.686 * 10^(-SNR/20) / sqrt(2) (DESIGN.md section 3.9: derived from 20 log10(1 +/- 10^(-SNR/20))).
+    """
+    return 8.685889638 * 10 ** (-np.asarray(snr_db) / 20) / np.sqrt(2)
+
+
+def interference_bounds_db(snr_db) -> tuple[np.ndarray, np.ndarray]:
+    """Worst-case interference error (+, -) dB: 20 log10(1 +/- 10^(-SNR/20))."""
+    x = 10 ** (-np.asarray(snr_db, float) / 20)
+    with np.errstate(divide="ignore"):
+        return 20 * np.log10(1 + x), 20 * np.log10(np.maximum(1 - x, 1e-300))
+
+
+def correlated_sum_uncertainty(u_abs: np.ndarray, frequency_hz: np.ndarray, cell_hz: float) -> float:
+    """Standard uncertainty of a sum of values with absolute uncertainties u_abs (angle, frequency).
+
+    Samples closer than one correlation cell (an inverse gate duration) in frequency are fully
+    correlated (added linearly); cells and angles are independent (added in quadrature), as
+    DESIGN.md section 3.9 says.
+    """
+    f = np.asarray(frequency_hz, float)
+    cell = np.floor((f - f[0]) / cell_hz).astype(int) if cell_hz > 0 else np.arange(len(f))
+    u = np.atleast_2d(u_abs)
+    sums = np.zeros((u.shape[0], cell.max() + 1))
+    np.add.at(sums, (slice(None), cell), u)
+    return float(np.sqrt(np.sum(sums ** 2)))
+
+
+def band_reduction_uncertainty_db(sigma_b, floor_b, u_rep_b, sigma_s, floor_s, u_rep_s,
+                                  frequency_hz, cell_hz: float, k: float = 2.0) -> float:
+    """Expanded uncertainty (coverage k, dB) of the band-averaged reduction (GUM, JCGM 100:2008).
+
+    Per point, the floor interference gives a relative power uncertainty sqrt(2) 10^(-SNR/20)
+    (twice the amplitude's); repeatability adds u_rep (relative power, from repeated sweeps).
+    Sums over the band follow :func:`correlated_sum_uncertainty`; baseline and subject are
+    independent. The calibration is common to both and cancels in the ratio.
+    """
+    total = 0.0
+    for sigma, floor, u_rep in ((sigma_b, floor_b, u_rep_b), (sigma_s, floor_s, u_rep_s)):
+        rel = np.sqrt(2.0) * np.sqrt(floor / sigma)
+        u_floor = correlated_sum_uncertainty(rel * sigma, frequency_hz, cell_hz)
+        u_r = correlated_sum_uncertainty(u_rep * sigma, frequency_hz, cell_hz) if u_rep is not None else 0.0
+        total += (u_floor ** 2 + u_r ** 2) / np.sum(sigma) ** 2
+    return float(k * DB * np.sqrt(total))
+
+
+def mounting_offset_deg(angle_deg, pattern_baseline, pattern_subject) -> float:
+    """Mounting offset, subject minus baseline (deg), from the circular cross-correlation peak.
+
+    Patterns are band-averaged RCS in dB over uniformly stepped angles covering a full turn
+    (else over the common span, not circular); the peak is refined by a parabola, so the
+    estimate is finer than one angle step. A positive offset means the subject's pattern is
+    turned to larger angles: subject(angle) ~ baseline(angle - offset).
+    """
+    a = np.asarray(angle_deg, float)
+    if len(a) < 3:
+        return 0.0
+    order = np.argsort(a)
+    a = a[order]
+    b = np.asarray(pattern_baseline, float)[order]
+    s = np.asarray(pattern_subject, float)[order]
+    step = float(np.median(np.diff(a)))
+    full_turn = np.allclose(np.diff(a), step, atol=1e-6 * max(step, 1)) and abs(len(a) * step - 360) < 1e-6
+    b = b - b.mean()
+    s = s - s.mean()
+    if full_turn:
+        xc = np.real(np.fft.ifft(np.fft.fft(s) * np.conj(np.fft.fft(b))))
+        lags = np.arange(len(a))
+        k = int(np.argmax(xc))
+        y0, y1, y2 = xc[(k - 1) % len(a)], xc[k], xc[(k + 1) % len(a)]
+    else:
+        xc = np.correlate(s, b, mode="full")
+        lags = np.arange(-len(a) + 1, len(a))
+        k = int(np.argmax(xc))
+        if k == 0 or k == len(xc) - 1:
+            return float(lags[k] * step)
+        y0, y1, y2 = xc[k - 1], xc[k], xc[k + 1]
+    denom = y0 - 2 * y1 + y2
+    frac = 0.5 * (y0 - y2) / denom if denom != 0 else 0.0
+    lag = lags[k] + frac
+    return float(wrap_angle_deg(lag * step))
+
+
+def resample_angles(angle_src, values, angle_dst, period: bool = True) -> np.ndarray:
+    """Linear interpolation of values (angle, ...) from angle_src to angle_dst, periodic in 360 deg."""
+    src = np.asarray(angle_src, float)
+    order = np.argsort(src)
+    src = src[order]
+    vals = np.asarray(values)[order]
+    dst = np.asarray(angle_dst, float)
+    if period:
+        src = np.concatenate([src - 360, src, src + 360])
+        vals = np.concatenate([vals, vals, vals], axis=0)
+        dst = np.mod(dst - src[len(order)], 360) + src[len(order)]
+    idx = np.clip(np.searchsorted(src, dst) - 1, 0, len(src) - 2)
+    w = ((dst - src[idx]) / (src[idx + 1] - src[idx])).reshape((-1,) + (1,) * (vals.ndim - 1))
+    return (1 - w) * vals[idx] + w * vals[idx + 1]
