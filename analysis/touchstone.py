@@ -122,6 +122,14 @@ def _number(token: str, what: str, path: str, line: int) -> float:
     return value
 
 
+def _is_number(token: str) -> bool:
+    try:
+        float(token)
+    except ValueError:
+        return False
+    return True
+
+
 def _parse_option_line(text: str, path: str, line: int) -> dict:
     """``# <unit> <parameter> <format> R <n> [<n> ...]`` in any order, case-insensitive."""
     opts: dict = {}
@@ -139,9 +147,7 @@ def _parse_option_line(text: str, path: str, line: int) -> dict:
                              path=path, line=line)
         if kind == "r":
             values = []
-            while k + 1 < len(toks) and toks[k + 1].lower() not in _UNITS and \
-                    toks[k + 1].lower() not in _PARAMETERS and toks[k + 1].lower() not in _FORMATS and \
-                    toks[k + 1].lower() != "r":
+            while k + 1 < len(toks) and _is_number(toks[k + 1]):  # one value, or one per port (v2.1)
                 k += 1
                 values.append(_number(toks[k], "option line R", path, line))
             if not values:
