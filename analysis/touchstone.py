@@ -554,7 +554,7 @@ def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GH
     ``version`` "1.0" (the two-port order is then always S11 S21 S12 S22, the matrix Full, and
     per-port z0 goes on the option line as in the 2.1 specification's version 1.1), "2.0" or
     "2.1" (``two_port_order`` and ``matrix_format`` apply, per-port z0 goes in ``[Reference]``).
-    Values carry ``digits`` significant digits. The file is written under a temporary name in
+    Values carry ``digits`` significant digits (frequencies at least 15). The file is written under a temporary name in
     the same folder, then renamed over ``path``.
     """
     path = os.fspath(path)
@@ -632,14 +632,15 @@ def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GH
     pairs[:, 0::2], pairs[:, 1::2] = a, b
     table = np.column_stack([f / _UNITS[unit_l], pairs])
     num = f"%.{digits}g"
+    fnum = f"%.{max(digits, 15)}g"  # frequencies keep full precision: the grid must stay uniform
     if ports <= 2:
-        row_fmt = " ".join([num] * table.shape[1])
+        row_fmt = " ".join([fnum] + [num] * (table.shape[1] - 1))
     else:  # a frequency row wraps after each matrix row
         lines, k = [], 0
         for r in range(ports):
             n_in_row = int(np.count_nonzero(rr == r))
             cells = [num] * (2 * n_in_row)
-            lines.append(" ".join(([num] if r == 0 else []) + cells))
+            lines.append(" ".join(([fnum] if r == 0 else []) + cells))
             k += n_in_row
         row_fmt = "\n".join(lines)
     body = "\n".join(row_fmt % tuple(row) for row in table.tolist())
