@@ -214,3 +214,24 @@ def test_sample_campaign_agrees_with_its_truth():
             assert m["band_reduction_db"] == pytest.approx(expected, abs=0.75)
         elif m["bound"] == "lower":
             assert m["band_reduction_db"] <= expected + 0.75
+
+
+def test_cross_pol_calibrated_by_rolled_dihedral(tmp_path):
+    # Lee & Pottier BSA dihedral matrix: HV = A sin 2r; at r = 22.5 deg HV and HH carry equal power
+    cfg = copy.deepcopy(BASE)
+    cfg["polarizations"] = ["HH", "VV", "HV"]
+    cfg["target"] = cfg["target"][:2] + [
+        {"name": "xpol-ref", "role": "reference", "model": "dihedral", "fold_m": 0.2, "face_m": 0.14,
+         "roll_deg": 22.5, "calibrates": ["HV"], "size_m": 0.3},
+        {"name": "xpol-check", "role": "subject", "model": "dihedral", "fold_m": 0.15, "face_m": 0.1,
+         "roll_deg": 22.5, "angles": [0.0], "size_m": 0.22},
+    ]
+    cfg["target"][1]["calibrates"] = ["HH", "VV"]
+    sim = simulate(tmp_path, cfg)
+    camp = load_campaign(sim.manifest_path)
+    result = process_campaign(camp)
+    refs = {r["polarization"]: r for r in result.settings["references"]}
+    assert refs["HV"]["target"] == "xpol-ref" and not refs["HV"]["approximate"]
+    hv = [c for c in result.checks if c["polarization"] == "HV"]
+    assert hv and hv[0]["max_error_db"] <= 0.5, hv
+    assert all(c["passed"] for c in result.checks)
