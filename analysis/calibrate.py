@@ -104,8 +104,13 @@ def noise_gain(frequency_hz, center_m, span_m, **gate) -> np.ndarray:
     variance s^2 per point leaves s^2 sum_n |H(f, n)|^2 at frequency f. Exact, no sampling.
     """
     n = len(frequency_hz)
-    h = timedomain.time_gate(frequency_hz, np.eye(n, dtype=complex), center_m, span_m, **gate)
-    return np.sum(np.abs(h) ** 2, axis=0)
+    total = np.zeros(n)
+    for start in range(0, n, 256):  # blocks of unit inputs keep the memory small
+        unit = np.zeros((min(256, n - start), n), dtype=complex)
+        unit[np.arange(unit.shape[0]), start + np.arange(unit.shape[0])] = 1.0
+        h = timedomain.time_gate(frequency_hz, unit, center_m, span_m, **gate)
+        total += np.sum(np.abs(h) ** 2, axis=0)
+    return total
 
 
 def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_beta=6.0) -> np.ndarray:

@@ -235,3 +235,23 @@ def test_cross_pol_calibrated_by_rolled_dihedral(tmp_path):
     hv = [c for c in result.checks if c["polarization"] == "HV"]
     assert hv and hv[0]["max_error_db"] <= 0.5, hv
     assert all(c["passed"] for c in result.checks)
+
+
+def test_floor_without_repeats_matches_noise_level(tmp_path):
+    # white noise of known rms through the same gate: the profile-median estimate (exponential
+    # distribution of |Gaussian|^2: median = ln 2 x mean, a standard result) should land within ~1.5 dB
+    from analysis import calibrate
+
+    rng = np.random.default_rng(3)
+    f = np.linspace(8e9, 12e9, 401)
+    sigma_n = 1e-4
+    sweeps = sigma_n / np.sqrt(2) * (rng.standard_normal((1, 40, 1, 401)) + 1j * rng.standard_normal((1, 40, 1, 401)))
+    power, how = calibrate.gated_noise_power(f, sweeps, 4.0, 0.6)
+    assert "no repeats" in how
+    exact = sigma_n ** 2 * calibrate.noise_gain(f, 4.0, 0.6)
+    assert np.median(10 * np.log10(power[0] / exact)) == pytest.approx(0.0, abs=1.5)
+    # with repeats: the gated deviations give the same power (two estimates must agree)
+    rep = sigma_n / np.sqrt(2) * (rng.standard_normal((1, 40, 4, 401)) + 1j * rng.standard_normal((1, 40, 4, 401)))
+    power_rep, how_rep = calibrate.gated_noise_power(f, rep, 4.0, 0.6)
+    assert "repeated" in how_rep
+    assert np.median(10 * np.log10(power_rep[0] / exact)) == pytest.approx(0.0, abs=0.5)
