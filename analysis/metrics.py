@@ -174,41 +174,56 @@ def band_reduction_uncertainty_db(sigma_b, floor_b, u_rep_b, sigma_s, floor_s, u
     return float(k * DB * np.sqrt(total))
 
 
-def mounting_offset_deg(angle_deg, pattern_baseline, pattern_subject) -> float:
-    """Mounting offset, subject minus baseline (deg), from the circular cross-correlation peak.
+OFFSET_MIN_CORRELATION = 0.5  # below this the patterns share too little structure to align
 
-    Patterns are band-averaged RCS in dB over uniformly stepped angles covering a full turn
-    (else over the common span, not circular); the peak is refined by a parabola, so the
-    estimate is finer than one angle step. A positive offset means the subject's pattern is
-    turned to larger angles: subject(angle) ~ baseline(angle - offset).
+
+def mounting_offset_deg(angle_deg, pattern_baseline, pattern_subject, max_offset_deg: float = 10.0) -> float:
+    """Mounting offset only (see :func:`mounting_offset`)."""
+    return mounting_offset(angle_deg, pattern_baseline, pattern_subject, max_offset_deg)[0]
+
+
+def mounting_offset(angle_deg, pattern_baseline, pattern_subject,
+                    max_offset_deg: float = 10.0) -> tuple[float, float]:
+    """Mounting offset, subject minus baseline (deg), from the cross-correlation peak.
+
+    Patterns are band-averaged RCS in dB over uniformly stepped angles. Over a full turn the
+    correlation is circular, otherwise it runs over the common span (each lag normalised by
+    its overlap). Only lags within +/- ``max_offset_deg`` are searched: a mounting error is a
+    few degrees, and a cloak that moves a lobe (a seam, a bolt) must not pass for one. The
+    peak is refined by a parabola, so the estimate is finer than one angle step. A positive
+    offset means subject(angle) ~ baseline(angle - offset). Returns (offset, correlation
+    coefficient of the two patterns at the best whole lag): an offset is meaningful only when
+    the coefficient is high (a flat baseline pattern has nothing to align on).
     """
     a = np.asarray(angle_deg, float)
     if len(a) < 3:
-        return 0.0
+        return 0.0, 0.0
     order = np.argsort(a)
     a = a[order]
     b = np.asarray(pattern_baseline, float)[order]
     s = np.asarray(pattern_subject, float)[order]
     step = float(np.median(np.diff(a)))
-    full_turn = np.allclose(np.diff(a), step, atol=1e-6 * max(step, 1)) and abs(len(a) * step - 360) < 1e-6
+    n = len(a)
+    full_turn = np.allclose(np.diff(a), step, atol=1e-6 * max(step, 1)) and abs(n * step - 360) < 1e-6
     b = b - b.mean()
     s = s - s.mean()
+    max_lag = max(1, min(int(np.ceil(max_offset_deg / step)), n // 2 if full_turn else n - 2))
+    lags = np.arange(-max_lag - 1, max_lag + 2)
     if full_turn:
-        xc = np.real(np.fft.ifft(np.fft.fft(s) * np.conj(np.fft.fft(b))))
-        lags = np.arange(len(a))
-        k = int(np.argmax(xc))
-        y0, y1, y2 = xc[(k - 1) % len(a)], xc[k], xc[(k + 1) % len(a)]
+        xc = np.array([np.dot(np.roll(b, lag), s) for lag in lags])
     else:
-        xc = np.correlate(s, b, mode="full")
-        lags = np.arange(-len(a) + 1, len(a))
-        k = int(np.argmax(xc))
-        if k == 0 or k == len(xc) - 1:
-            return float(lags[k] * step)
-        y0, y1, y2 = xc[k - 1], xc[k], xc[k + 1]
+        xc = np.array([np.dot(b[max(0, -lag):n - max(0, lag)], s[max(0, lag):n - max(0, -lag)])
+                       / (n - abs(lag)) for lag in lags])
+    inner = slice(1, len(lags) - 1)
+    k = 1 + int(np.argmax(xc[inner]))
+    y0, y1, y2 = xc[k - 1], xc[k], xc[k + 1]
     denom = y0 - 2 * y1 + y2
-    frac = 0.5 * (y0 - y2) / denom if denom != 0 else 0.0
-    lag = lags[k] + frac
-    return float(wrap_angle_deg(lag * step))
+    frac = 0.5 * (y0 - y2) / denom if denom < 0 else 0.0
+    shifted = np.roll(b, lags[k]) if full_turn else b
+    norm = np.linalg.norm(shifted) * np.linalg.norm(s)
+    corr = float(np.dot(shifted, s) / norm) if full_turn and norm > 0 else float(
+        y1 / max(np.std(b) * np.std(s), 1e-300))
+    return float(np.clip((lags[k] + frac) * step, -max_offset_deg, max_offset_deg)), corr
 
 
 def resample_angles(angle_src, values, angle_dst, period: bool = True) -> np.ndarray:

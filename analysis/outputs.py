@@ -26,6 +26,7 @@ def atomic_write(path: Path, write) -> None:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             write(fh)
             fh.flush()
@@ -37,6 +38,12 @@ def atomic_write(path: Path, write) -> None:
         except OSError:
             pass
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def json_ready(obj):

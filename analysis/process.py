@@ -276,7 +276,8 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         if vals:
             floor_summary[pol] = float(np.median(np.concatenate(vals)))
 
-    metric_rows, reductions = _cloak_metrics(targets, f, valid, band_mask, min(spans), settings, checks)
+    metric_rows, reductions = _cloak_metrics(targets, f, valid, band_mask, min(spans), settings, checks,
+                                             warnings)
     tick("metrics")
 
     hashes = campaign.file_hashes
@@ -389,7 +390,7 @@ def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, setting
     return out
 
 
-def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSettings, checks):
+def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSettings, checks, warnings):
     rows, reductions = [], {}
     cell_hz = C0 / (2 * min_span)
     margin = settings.floor_margin_db
@@ -407,10 +408,15 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
             b_sig = b_all.values[idx]
             pat_b = 10 * np.log10(b_sig[:, band_mask].mean(axis=1))
             pat_s = 10 * np.log10(s_sig[:, band_mask].mean(axis=1))
-            offset = metrics.mounting_offset_deg(s_angles, pat_b, pat_s)
+            offset, corr = metrics.mounting_offset(s_angles, pat_b, pat_s)
+            reliable = corr >= metrics.OFFSET_MIN_CORRELATION
             s_use = s_sig
             s_rep = None if t.rep_rel_u is None else t.rep_rel_u.sel(polarization=pol).values
-            if settings.align_angles and offset != 0.0:
+            aligned = settings.align_angles and reliable and offset != 0.0
+            if settings.align_angles and not reliable:
+                warnings.append(f"{name} {pol}: mounting offset not applied: its angular pattern and "
+                                f"{t.baseline}'s correlate too weakly ({corr:.2f}) to align on")
+            if aligned:
                 s_use = metrics.resample_angles(s_angles, s_sig, np.asarray(s_angles) + offset)
                 if s_rep is not None:
                     s_rep = metrics.resample_angles(s_angles, s_rep, np.asarray(s_angles) + offset)
@@ -451,7 +457,9 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                 "floor_limited_points": int(np.sum(s_lim[sel] | b_lim[sel])),
                 "points": int(s_lim[sel].size),
                 "mounting_offset_deg": offset,
-                "angles_aligned": bool(settings.align_angles),
+                "mounting_offset_correlation": corr,
+                "mounting_offset_reliable": bool(reliable),
+                "angles_aligned": bool(aligned),
                 "check_error_db": max(check_err) if check_err else None,
                 "sector_curve_db": [float(x) for x in curve],
                 "sector_curve_frequency_hz": [float(x) for x in fb],

@@ -119,3 +119,16 @@ def test_parse_sector():
     assert metrics.parse_sector("-30:30") == (-30.0, 30.0)
     with pytest.raises(Exception, match="START:STOP"):
         metrics.parse_sector("thirty")
+
+
+def test_mounting_offset_confidence():
+    angles = np.arange(0, 360, 5.0)
+    t = np.radians(angles)
+    lobed = 10 * np.log10(2.0 + np.cos(t) + 0.5 * np.cos(3 * t))
+    shifted = 10 * np.log10(2.0 + np.cos(t - np.radians(4)) + 0.5 * np.cos(3 * (t - np.radians(4))))
+    assert metrics.mounting_offset(angles, lobed, shifted)[1] > 0.9
+    # unrelated structure (a lobe where the baseline has none): no offset to trust
+    rng = np.random.default_rng(0)
+    flat = 0.05 * rng.standard_normal(angles.size)
+    seam = np.where(np.abs(angles - 180) < 20, 3.0, 0.0)
+    assert metrics.mounting_offset(angles, flat, seam)[1] < metrics.OFFSET_MIN_CORRELATION
