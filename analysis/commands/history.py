@@ -1,0 +1,53 @@
+"""`cloakrcs history [PROTOTYPE]`: cloak metrics per revision and polarization, in revision order."""
+
+from __future__ import annotations
+
+import json
+
+
+def register(sub) -> None:
+    p = sub.add_parser("history", help="cloak metrics of every revision of a prototype, in revision order")
+    p.add_argument("prototype", nargs="?", help="prototype name (default: every prototype)")
+    p.add_argument("--store", metavar="URL", help="results store (default: CLOAKRCS_STORE or the per-user SQLite file)")
+    p.add_argument("--json", action="store_true", help="print the rows as a JSON list")
+    p.add_argument("--all-runs", action="store_true", help="every processing run, not only each campaign's latest")
+    p.set_defaults(func=run)
+
+
+def _f(x, fmt: str) -> str:
+    return "-" if x is None else format(x, fmt)
+
+
+def format_table(header: list[str], rows: list[list[str]], right: set[int] = frozenset()) -> str:
+    """An aligned plain-text table (columns in ``right`` right-aligned)."""
+    widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(len(header))]
+    lines = []
+    for r in [header, *rows]:
+        cells = [str(c).rjust(w) if i in right else str(c).ljust(w) for i, (c, w) in enumerate(zip(r, widths))]
+        lines.append("  ".join(cells).rstrip())
+    return "\n".join(lines)
+
+
+def format_history(rows: list[dict]) -> str:
+    if not rows:
+        return "no processed revisions in the store"
+    header = ["prototype", "revision", "date", "pol", "band reduction (dB)", "bandwidth (MHz)",
+              "worst angle (dB @ deg)", "check err (dB)", "campaign", "run"]
+    body = []
+    for r in rows:
+        red = f"{_f(r['band_reduction_db'], '.2f')} +/- {_f(r['band_reduction_uncertainty_db'], '.2f')}"
+        if r.get("bound") not in (None, "none"):
+            red += f" ({r['bound']})"
+        worst = f"{_f(r['worst_angle_reduction_db'], '.2f')} @ {_f(r['worst_angle_deg'], 'g')}"
+        bw = "-" if r["bandwidth_hz"] is None else f"{r['bandwidth_hz'] / 1e6:.0f}"
+        body.append([r["prototype"], r["revision"], r["date"] or "-", r["polarization"], red, bw, worst,
+                     _f(r["check_error_db"], ".2f"), r["campaign"], r["run_id"]])
+    return format_table(header, body, right={4, 5, 6, 7, 9})
+
+
+def run(args) -> int:
+    from .. import store
+
+    rows = store.history(store.resolve_url(args.store), args.prototype, all_runs=args.all_runs)
+    print(json.dumps(rows, indent=2) if args.json else format_history(rows))
+    return 0

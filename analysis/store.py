@@ -1,0 +1,762 @@
+"""Results store: every campaign and processing run kept, findable, reprocessable and comparable.
+
+A SQLite file by default (:func:`default_url`, overridden by ``--store URL`` or the
+``CLOAKRCS_STORE`` environment variable), or PostgreSQL by URL
+(``postgresql+psycopg://user:pw@host/db``). Tables: :mod:`analysis.store_schema`; the
+schema is created and upgraded by the Alembic migrations in ``analysis/migrations``
+whenever a store is opened.
+
+A campaign is identified by its fingerprint: prototype, campaign name and, for every sweep,
+the target, polarization, angle, repeat and the file's SHA-256. Importing the same files
+again adds a processing run to the existing campaign. :func:`record_run` is one
+transaction: it either records everything or leaves the store exactly as it was.
+
+SQLite takes one writer at a time: write transactions start with ``BEGIN IMMEDIATE`` (the
+write lock is taken first, so a writer never fails halfway on a lock) in WAL mode with a
+long busy timeout, so parallel writers queue and wait instead of failing with "database is
+locked". Readers do not block writers and are not blocked by them.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import io
+import json
+import math
+import os
+import re
+import sys
+import tempfile
+import threading
+import tomllib
+import zlib
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+from sqlalchemy import create_engine, event, func, select
+from sqlalchemy.engine import make_url
+from sqlalchemy.exc import ArgumentError, IntegrityError, OperationalError
+from sqlalchemy.orm import Session, sessionmaker
+
+from . import store_schema as S
+from .errors import InputError
+
+STORE_ENV = "CLOAKRCS_STORE"
+BUSY_TIMEOUT_S = 600.0  # a SQLite writer waits this long for the write lock before giving up
+BOUND_LABELS = ("none", "lower", "upper", "undetermined")
+POL_ORDER = ("HH", "VV", "HV", "VH")
+_METRIC_COLUMNS = ("subject", "baseline", "revision", "polarization", "band_reduction_db",
+                   "band_reduction_uncertainty_db", "best_reduction_db", "best_frequency_hz", "bandwidth_hz",
+                   "bandwidth_start_hz", "bandwidth_stop_hz", "bandwidth_truncated", "fractional_bandwidth",
+                   "worst_angle_deg", "worst_angle_reduction_db", "bound", "floor_limited_points", "points",
+                   "mounting_offset_deg", "check_error_db")
+_CHECK_COLUMNS = ("target", "polarization", "max_error_db", "rms_error_db", "mean_error_db", "tolerance_db",
+                  "passed", "points")
+
+_engines: dict[tuple[str, int], tuple] = {}
+_lock = threading.Lock()
+
+
+# ---------------------------------------------------------------- URLs and engines
+
+def data_dir() -> Path:
+    """The per-user data folder: $XDG_DATA_HOME/cloakrcs (LOCALAPPDATA on Windows, Application Support on macOS)."""
+    if sys.platform == "win32":
+        base = Path(os.environ.get("LOCALAPPDATA") or Path.home() / "AppData" / "Local")
+    elif sys.platform == "darwin":
+        base = Path.home() / "Library" / "Application Support"
+    else:
+        base = Path(os.environ.get("XDG_DATA_HOME") or Path.home() / ".local" / "share")
+    return base / "cloakrcs"
+
+
+def default_url() -> str:
+    """The per-user SQLite store: ``data_dir() / "results.sqlite"``."""
+    return "sqlite:///" + (data_dir() / "results.sqlite").as_posix()
+
+
+def resolve_url(url: str | None = None) -> str:
+    """The store URL to use: ``url``, else $CLOAKRCS_STORE, else :func:`default_url`.
+
+    A plain file path (no ``scheme://``) means a SQLite file.
+    """
+    url = url or os.environ.get(STORE_ENV) or default_url()
+    if "://" not in url:
+        url = "sqlite:///" + Path(url).expanduser().resolve().as_posix()
+    try:
+        parsed = make_url(url)
+    except ArgumentError:
+        raise InputError(f"store URL {url!r} is not a database URL such as sqlite:///path or "
+                         f"postgresql+psycopg://user@host/db") from None
+    if parsed.get_backend_name() not in ("sqlite", "postgresql"):
+        raise InputError(f"store URL {url!r}: only SQLite and PostgreSQL stores are supported")
+    return url
+
+
+def _sqlite_engine(url: str):
+    path = make_url(url).database
+    if path and path != ":memory:":
+        try:
+            Path(path).parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"cannot create the store's folder: {exc.strerror or exc}", path) from None
+    engine = create_engine(url, connect_args={"timeout": BUSY_TIMEOUT_S})
+
+    @event.listens_for(engine, "connect")
+    def _connect(dbapi_conn, _record):
+        dbapi_conn.isolation_level = None  # transactions are begun by _begin below
+        cur = dbapi_conn.cursor()
+        cur.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+        cur.execute("PRAGMA journal_mode = WAL")
+        cur.execute("PRAGMA foreign_keys = ON")
+        cur.close()
+
+    @event.listens_for(engine, "begin")
+    def _begin(conn):
+        # writers take the write lock at BEGIN, waiting (busy timeout) for the current writer
+        conn.exec_driver_sql("BEGIN IMMEDIATE" if conn.get_execution_options().get("cloakrcs_write") else "BEGIN")
+
+    return engine
+
+
+def _engine_pair(url: str):
+    key = (url, os.getpid())  # never share a pool across fork
+    with _lock:
+        if key not in _engines:
+            backend = make_url(url).get_backend_name()
+            engine = _sqlite_engine(url) if backend == "sqlite" else create_engine(url, pool_pre_ping=True)
+            try:
+                _migrate(engine)
+            except OperationalError as exc:
+                engine.dispose()
+                raise InputError(f"cannot open the results store {_safe(url)}: {exc.orig}") from None
+            writer = engine.execution_options(cloakrcs_write=True)
+            _engines[key] = (engine, sessionmaker(bind=engine), sessionmaker(bind=writer))
+        return _engines[key]
+
+
+def _safe(url: str) -> str:
+    return make_url(url).render_as_string(hide_password=True)
+
+
+def _alembic_config():
+    from alembic.config import Config
+
+    cfg = Config()
+    cfg.set_main_option("script_location", str(Path(__file__).with_name("migrations")))
+    return cfg
+
+
+def _migrate(engine) -> None:
+    """Upgrade the schema to the newest migration (one migrator at a time)."""
+    from alembic import command
+    from alembic.runtime.migration import MigrationContext
+    from alembic.script import ScriptDirectory
+
+    cfg = _alembic_config()
+    head = ScriptDirectory.from_config(cfg).get_current_head()
+    with engine.connect() as conn:
+        current = MigrationContext.configure(conn).get_current_revision()
+        conn.rollback()
+    if current == head:
+        return
+    with engine.execution_options(cloakrcs_write=True).connect() as conn:
+        cfg.attributes["connection"] = conn
+        command.upgrade(cfg, "head")
+        conn.commit()
+
+
+def open_store(url: str | None = None, write: bool = False) -> sessionmaker:
+    """Session factory of a store, its schema migrated to head.
+
+    ``write=True`` gives sessions whose transactions take SQLite's write lock at BEGIN.
+    ``factory.kw["bind"]`` is the engine.
+    """
+    _engine, reader, writer = _engine_pair(resolve_url(url))
+    return writer if write else reader
+
+
+def close_store(url: str | None = None) -> None:
+    """Dispose the pooled connections of one store (all stores when url is None)."""
+    with _lock:
+        for key in list(_engines):
+            if url is None or key[0] == url:
+                _engines.pop(key)[0].dispose()
+
+
+# ---------------------------------------------------------------- arrays
+
+def pack_array(a) -> bytes:
+    """np.save bytes (no pickle), zlib-compressed; dtype and shape kept exactly."""
+    buf = io.BytesIO()
+    np.save(buf, np.ascontiguousarray(a), allow_pickle=False)
+    return zlib.compress(buf.getvalue(), 6)
+
+
+def unpack_array(blob: bytes) -> np.ndarray:
+    return np.load(io.BytesIO(zlib.decompress(blob)), allow_pickle=False)
+
+
+def _num(x):
+    """A finite float, or None (NaN and infinities are stored as NULL)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _json(obj):
+    from .outputs import json_ready
+
+    return json_ready(obj)
+
+
+def _utc(t: dt.datetime | None) -> dt.datetime | None:
+    if t is not None and t.tzinfo is None:
+        t = t.replace(tzinfo=dt.timezone.utc)  # SQLite returns naive datetimes; they were stored in UTC
+    return t
+
+
+def natural_key(label: str) -> tuple:
+    """Sort key putting R2 before R10 (digit runs compare as numbers, the rest case-blind)."""
+    return tuple((0, int(p), "") if p.isdigit() else (1, 0, p.casefold()) for p in re.split(r"(\d+)", label) if p)
+
+
+def _pol_key(pol: str) -> int:
+    return POL_ORDER.index(pol) if pol in POL_ORDER else len(POL_ORDER)
+
+
+# ---------------------------------------------------------------- recording
+
+def campaign_fingerprint(campaign) -> str:
+    """SHA-256 over prototype, campaign name and every sweep's (target, role, pol, angle, repeat, file SHA-256)."""
+    m = campaign.manifest
+    items = [m.prototype, m.name]
+    for name in sorted(campaign.cubes):
+        cube = campaign.cubes[name]
+        for ip, pol in enumerate(cube.polarizations):
+            for ia, ang in enumerate(cube.angles_deg):
+                for ir, rep in enumerate(cube.data.repeat.values):
+                    items.append([name, cube.spec.role, pol, repr(float(ang)), int(rep),
+                                  cube.hashes[str(cube.files[ip, ia, ir])]])
+    return hashlib.sha256(json.dumps(items).encode()).hexdigest()
+
+
+def _target_dates(manifest) -> dict[str, dt.date]:
+    """Per-target ``date`` keys of the manifest (TargetSpec does not keep them)."""
+    try:
+        doc = tomllib.loads(manifest.text)
+    except tomllib.TOMLDecodeError:
+        return {}
+    out = {}
+    for t in doc.get("target", []) if isinstance(doc.get("target"), list) else []:
+        d = t.get("date") if isinstance(t, dict) else None
+        if isinstance(d, dt.datetime):
+            d = d.date()
+        if isinstance(d, dt.date) and isinstance(t.get("name"), str):
+            out[t["name"]] = d
+    return out
+
+
+def _spec_dict(spec) -> dict:
+    from dataclasses import asdict
+
+    d = asdict(spec)
+    d["calibrates"] = list(spec.calibrates) if spec.calibrates is not None else None
+    return _json(d)
+
+
+def _get_prototype(s: Session, name: str, create: bool = True) -> S.Prototype | None:
+    proto = s.scalar(select(S.Prototype).where(S.Prototype.name == name))
+    if proto is None and create:
+        proto = S.Prototype(name=name, created_at=dt.datetime.now(dt.timezone.utc))
+        s.add(proto)
+        s.flush()
+    return proto
+
+
+def _get_revision(s: Session, proto: S.Prototype, label: str, date: dt.date | None,
+                  create: bool = True) -> S.Revision | None:
+    rev = s.scalar(select(S.Revision).where(S.Revision.prototype_id == proto.id, S.Revision.label == label))
+    if rev is None and create:
+        rev = S.Revision(prototype_id=proto.id, label=label, date=date, notes="")
+        s.add(rev)
+        s.flush()
+    elif rev is not None and date is not None and (rev.date is None or date < rev.date):
+        rev.date = date  # a revision's date is its first measurement
+    return rev
+
+
+def _ensure_campaign(s: Session, campaign) -> S.Campaign:
+    """The stored campaign with these files, created with its raw sweeps when new."""
+    fp = campaign_fingerprint(campaign)
+    found = s.scalar(select(S.Campaign).where(S.Campaign.fingerprint == fp))
+    if found is not None:
+        return found
+    m = campaign.manifest
+    proto = _get_prototype(s, m.prototype)
+    row = S.Campaign(prototype_id=proto.id, name=m.name, date=m.date, fingerprint=fp, manifest_text=m.text,
+                     manifest_path=str(m.path),
+                     chamber={"range_m": m.chamber.range_m, "offset_m": m.chamber.offset_m,
+                              "bistatic_deg": m.chamber.bistatic_deg},
+                     frequency_hz=pack_array(campaign.frequency_hz), created_at=dt.datetime.now(dt.timezone.utc))
+    s.add(row)
+    s.flush()
+    dates = _target_dates(m)
+    for pos, spec in enumerate(m.targets):
+        cube = campaign.cubes[spec.name]
+        rev = None
+        date = dates.get(spec.name, m.date)
+        if spec.role == "subject" and spec.baseline:
+            rev = _get_revision(s, proto, spec.revision or spec.name, date)
+        t = S.CampaignTarget(
+            campaign_id=row.id, revision_id=rev.id if rev else None, position=pos, name=spec.name,
+            role=spec.role, date=dates.get(spec.name), spec=_spec_dict(spec), n_ports=cube.n_ports,
+            parameters=dict(cube.parameters), polarizations=cube.polarizations,
+            angles_deg=pack_array(cube.angles_deg), repeats=pack_array(cube.data.repeat.values),
+            data=pack_array(cube.data.values.astype(np.complex128, copy=False)))
+        s.add(t)
+        s.flush()
+        for (ip, ia, ir), path in np.ndenumerate(cube.files):
+            s.add(S.CampaignFile(campaign_id=row.id, target_id=t.id, path=os.path.relpath(path, m.folder).replace(
+                os.sep, "/"), sha256=cube.hashes[str(path)], polarization=cube.polarizations[ip],
+                angle_index=ia, repeat_index=ir))
+    s.flush()
+    return row
+
+
+def _add_run(s: Session, crow: S.Campaign, campaign, result) -> S.ProcessingRun:
+    run = S.ProcessingRun(
+        campaign_id=crow.id, processed_at=dt.datetime.now(dt.timezone.utc),
+        software_version=str(result.settings.get("software_version", "")),
+        process_settings=_json(result.settings.get("process_settings", {})), settings=_json(result.settings),
+        manifest_text=campaign.manifest.text, floor=_json(result.floor), warnings=list(result.warnings),
+        frequency_hz=pack_array(result.frequency_hz), valid_mask=pack_array(result.valid_mask),
+        band_mask=pack_array(result.band_mask))
+    s.add(run)
+    s.flush()
+    return run
+
+
+def _add_results(s: Session, run: S.ProcessingRun, result) -> None:
+    """Calibrated cubes and reduction maps of every target."""
+    for pos, (name, t) in enumerate(result.targets.items()):
+        s.add(S.TargetResultRow(
+            run_id=run.id, position=pos, name=name, role=t.role, revision=t.revision, baseline=t.baseline,
+            gate=_json(t.gate), shape=_json(t.shape), polarizations=[str(p) for p in t.amplitude.polarization.values],
+            angles_deg=pack_array(t.amplitude.angle.values), amplitude=pack_array(t.amplitude.values),
+            floor=pack_array(t.floor.values), rep_rel_u=None if t.rep_rel_u is None else pack_array(t.rep_rel_u.values)))
+    for (subject, pol), ds in result.reductions.items():
+        codes = np.vectorize(BOUND_LABELS.index, otypes=[np.int8])(ds["bound"].values)
+        s.add(S.ReductionRow(run_id=run.id, subject=subject, polarization=pol,
+                             angles_deg=pack_array(ds.angle.values), frequency_hz=pack_array(ds.frequency.values),
+                             reduction_db=pack_array(ds["reduction_db"].values), bound=pack_array(codes)))
+    s.flush()
+
+
+def _add_metrics(s: Session, run: S.ProcessingRun, crow: S.Campaign, result) -> None:
+    """Metrics and checks as queryable rows."""
+    rev_of = dict(s.execute(select(S.CampaignTarget.name, S.CampaignTarget.revision_id)
+                            .where(S.CampaignTarget.campaign_id == crow.id)).all())
+    for m in result.metrics:
+        cols = {k: m.get(k) for k in _METRIC_COLUMNS}
+        for k in _METRIC_COLUMNS[4:]:
+            if k not in ("bandwidth_truncated", "bound", "floor_limited_points", "points"):
+                cols[k] = _num(cols[k])
+        cols["bandwidth_truncated"] = None if m.get("bandwidth_truncated") is None else bool(m["bandwidth_truncated"])
+        extra = _json({k: v for k, v in m.items() if k not in _METRIC_COLUMNS})
+        s.add(S.MetricRow(run_id=run.id, revision_id=rev_of.get(m["subject"]), extra=extra, **cols))
+    for c in result.checks:
+        cols = {k: c.get(k) for k in _CHECK_COLUMNS}
+        for k in ("max_error_db", "rms_error_db", "mean_error_db", "tolerance_db"):
+            cols[k] = _num(cols[k])
+        cols["passed"] = bool(cols["passed"])
+        s.add(S.CheckRow(run_id=run.id, extra=_json({k: v for k, v in c.items() if k not in _CHECK_COLUMNS}), **cols))
+    s.flush()
+
+
+def record_run(url: str | None, campaign, result) -> int:
+    """Record a processing run (and its campaign, when new) in one transaction; returns the run id.
+
+    On any error nothing is written. A unique-key clash with a concurrent writer (two
+    writers adding the same new campaign on PostgreSQL) retries the transaction.
+    """
+    factory = open_store(url, write=True)
+    for attempt in range(3):
+        try:
+            with factory.begin() as s:
+                crow = _ensure_campaign(s, campaign)
+                run = _add_run(s, crow, campaign, result)
+                _add_results(s, run, result)
+                _add_metrics(s, run, crow, result)
+                return run.id
+        except IntegrityError:
+            if attempt == 2:
+                raise
+    raise AssertionError("unreachable")
+
+
+# ---------------------------------------------------------------- queries
+
+def list_runs(url: str | None, prototype: str | None = None) -> list[dict]:
+    """Every processing run, oldest first: run_id, campaign_id, campaign, prototype, date, processed_at, ..."""
+    with open_store(url)() as s:
+        q = (select(S.ProcessingRun, S.Campaign, S.Prototype)
+             .join(S.Campaign, S.ProcessingRun.campaign_id == S.Campaign.id)
+             .join(S.Prototype, S.Campaign.prototype_id == S.Prototype.id).order_by(S.ProcessingRun.id))
+        if prototype is not None:
+            q = q.where(S.Prototype.name == prototype)
+        return [{"run_id": r.id, "campaign_id": c.id, "campaign": c.name, "prototype": p.name,
+                 "date": c.date.isoformat() if c.date else None, "processed_at": _utc(r.processed_at).isoformat(),
+                 "software_version": r.software_version, "manifest": c.manifest_path}
+                for r, c, p in s.execute(q).all()]
+
+
+def latest_run_id(url: str | None, campaign_name: str | None = None) -> int | None:
+    """Id of the newest run (of the newest campaign of that name), None when there is none."""
+    with open_store(url)() as s:
+        q = select(func.max(S.ProcessingRun.id))
+        if campaign_name is not None:
+            q = q.join(S.Campaign, S.ProcessingRun.campaign_id == S.Campaign.id).where(S.Campaign.name == campaign_name)
+        return s.scalar(q)
+
+
+def find_campaign(url: str | None, campaign) -> int | None:
+    """Id of the stored campaign holding exactly these files (same fingerprint), or None."""
+    with open_store(url)() as s:
+        return s.scalar(select(S.Campaign.id).where(S.Campaign.fingerprint == campaign_fingerprint(campaign)))
+
+
+def find_run_for_campaign(url: str | None, campaign) -> int | None:
+    """Id of the newest run of the stored campaign holding exactly these files, or None."""
+    with open_store(url)() as s:
+        return s.scalar(select(func.max(S.ProcessingRun.id)).join(S.Campaign, S.ProcessingRun.campaign_id == S.Campaign.id)
+                        .where(S.Campaign.fingerprint == campaign_fingerprint(campaign)))
+
+
+def campaign_for_hashes(url: str | None, hashes) -> list[int]:
+    """Ids of the stored campaigns whose files have exactly this set of SHA-256 values."""
+    want = set(hashes)
+    with open_store(url)() as s:
+        got: dict[int, set] = {}
+        for cid, h in s.execute(select(S.CampaignFile.campaign_id, S.CampaignFile.sha256)).all():
+            got.setdefault(cid, set()).add(h)
+    return sorted(cid for cid, hs in got.items() if hs == want)
+
+
+def _prototype_names(s: Session) -> list[str]:
+    return sorted(s.scalars(select(S.Prototype.name)).all())
+
+
+def _check_prototype(s: Session, prototype: str | None) -> None:
+    if prototype is not None and s.scalar(select(S.Prototype.id).where(S.Prototype.name == prototype)) is None:
+        known = ", ".join(repr(n) for n in _prototype_names(s)) or "none"
+        raise InputError(f"no prototype {prototype!r} in the store (known: {known})")
+
+
+def history(url: str | None, prototype: str | None = None, all_runs: bool = False) -> list[dict]:
+    """Cloak metrics per revision and polarization, in revision order.
+
+    Order: revision date (its first measurement), labels in natural order (R2 < R10), then
+    campaign date, polarization, run. By default only the latest run of each campaign;
+    ``all_runs=True`` gives every run. ``check_error_db`` is the largest absolute error over
+    the valid band of the run's check targets in that polarization (None without one).
+    """
+    with open_store(url)() as s:
+        _check_prototype(s, prototype)
+        q = (select(S.MetricRow, S.ProcessingRun, S.Campaign, S.Prototype, S.Revision)
+             .join(S.ProcessingRun, S.MetricRow.run_id == S.ProcessingRun.id)
+             .join(S.Campaign, S.ProcessingRun.campaign_id == S.Campaign.id)
+             .join(S.Prototype, S.Campaign.prototype_id == S.Prototype.id)
+             .outerjoin(S.Revision, S.MetricRow.revision_id == S.Revision.id))
+        if prototype is not None:
+            q = q.where(S.Prototype.name == prototype)
+        rows = s.execute(q).all()
+        latest = dict(s.execute(select(S.ProcessingRun.campaign_id, func.max(S.ProcessingRun.id))
+                                .group_by(S.ProcessingRun.campaign_id)).all())
+        checks: dict[tuple[int, str], float] = {}
+        for run_id, pol, err in s.execute(select(S.CheckRow.run_id, S.CheckRow.polarization, S.CheckRow.max_error_db)):
+            if err is not None:
+                checks[(run_id, pol)] = max(checks.get((run_id, pol), 0.0), abs(err))
+        tdates = dict(s.execute(select(S.CampaignTarget.id, S.CampaignTarget.date)).all())
+        tdate_of = {(cid, name): tdates[tid] for tid, cid, name in
+                    s.execute(select(S.CampaignTarget.id, S.CampaignTarget.campaign_id, S.CampaignTarget.name))}
+    out = []
+    far = dt.date.max
+    for m, run, c, p, rev in rows:
+        if not all_runs and latest.get(c.id) != run.id:
+            continue
+        measured = tdate_of.get((c.id, m.subject)) or c.date
+        rev_date = rev.date if rev is not None and rev.date is not None else measured
+        item = {
+            "prototype": p.name, "revision": m.revision, "subject": m.subject, "baseline": m.baseline,
+            "polarization": m.polarization, "campaign": c.name, "campaign_id": c.id, "run_id": run.id,
+            "processed_at": _utc(run.processed_at).isoformat(), "software_version": run.software_version,
+            "date": measured.isoformat() if measured else None,
+            "band_reduction_db": m.band_reduction_db, "band_reduction_uncertainty_db": m.band_reduction_uncertainty_db,
+            "bandwidth_hz": m.bandwidth_hz, "bandwidth_start_hz": m.bandwidth_start_hz,
+            "bandwidth_stop_hz": m.bandwidth_stop_hz,
+            "worst_angle_deg": m.worst_angle_deg, "worst_angle_reduction_db": m.worst_angle_reduction_db,
+            "bound": m.bound, "check_error_db": checks.get((run.id, m.polarization)),
+        }
+        key = (p.name, rev_date or far, natural_key(m.revision), measured or far, c.name, _pol_key(m.polarization),
+               m.subject, run.id)
+        out.append((key, item))
+    out.sort(key=lambda kv: kv[0])
+    return [item for _key, item in out]
+
+
+def _latest_rows(rows: list[dict], revision: str) -> dict[str, dict]:
+    """Per polarization, the newest measurement of a revision (latest campaign date, then run)."""
+    mine = [r for r in rows if r["revision"] == revision]
+    mine.sort(key=lambda r: (r["date"] or "", r["run_id"]))
+    return {r["polarization"]: r for r in mine}
+
+
+def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = None) -> list[dict]:
+    """B - A of the band-averaged reduction per polarization, with the uncertainty of the difference.
+
+    Each revision's newest measurement is used. The two results are taken as independent,
+    so U(B - A) = sqrt(U_A^2 + U_B^2) (GUM, JCGM 100:2008 eq. 10, uncorrelated inputs);
+    both U are expanded with the same coverage factor. Revisions measured against the same
+    baseline sweeps are positively correlated, which makes this an overestimate.
+    """
+    rows = history(url, prototype)
+    protos = {}
+    for label in (rev_a, rev_b):
+        found = sorted({r["prototype"] for r in rows if r["revision"] == label})
+        if not found:
+            known = ", ".join(sorted({r["revision"] for r in rows}, key=natural_key)) or "none"
+            raise InputError(f"no revision {label!r} in the store" + (f" for prototype {prototype!r}" if prototype
+                                                                      else "") + f" (known: {known})")
+        protos[label] = found
+    common = sorted(set(protos[rev_a]) & set(protos[rev_b]))
+    if not common:
+        raise InputError(f"revisions {rev_a!r} and {rev_b!r} belong to different prototypes "
+                         f"({', '.join(protos[rev_a])} / {', '.join(protos[rev_b])})")
+    if len(common) > 1:
+        raise InputError(f"revisions {rev_a!r} and {rev_b!r} exist in several prototypes "
+                         f"({', '.join(common)}): choose one with --prototype")
+    proto = common[0]
+    rows = [r for r in rows if r["prototype"] == proto]
+    a, b = _latest_rows(rows, rev_a), _latest_rows(rows, rev_b)
+    pols = sorted(set(a) & set(b), key=_pol_key)
+    if not pols:
+        raise InputError(f"revisions {rev_a!r} and {rev_b!r} share no polarization")
+    out = []
+    for pol in pols:
+        ra, rb = a[pol], b[pol]
+
+        def diff(key):
+            return None if ra[key] is None or rb[key] is None else rb[key] - ra[key]
+
+        ua, ub = ra["band_reduction_uncertainty_db"], rb["band_reduction_uncertainty_db"]
+        out.append({
+            "prototype": proto, "revision_a": rev_a, "revision_b": rev_b, "polarization": pol,
+            "band_reduction_a_db": ra["band_reduction_db"], "band_reduction_b_db": rb["band_reduction_db"],
+            "uncertainty_a_db": ua, "uncertainty_b_db": ub,
+            "difference_db": diff("band_reduction_db"),
+            "difference_uncertainty_db": None if ua is None or ub is None else math.hypot(ua, ub),
+            "bandwidth_a_hz": ra["bandwidth_hz"], "bandwidth_b_hz": rb["bandwidth_hz"],
+            "bandwidth_difference_hz": diff("bandwidth_hz"),
+            "worst_angle_reduction_a_db": ra["worst_angle_reduction_db"],
+            "worst_angle_reduction_b_db": rb["worst_angle_reduction_db"],
+            "worst_angle_difference_db": diff("worst_angle_reduction_db"),
+            "run_a": ra["run_id"], "run_b": rb["run_id"], "campaign_a": ra["campaign"], "campaign_b": rb["campaign"],
+        })
+    return out
+
+
+# ---------------------------------------------------------------- revision notes and parameters
+
+def _revision_for_edit(s: Session, prototype: str, revision: str) -> S.Revision:
+    _check_prototype(s, prototype)
+    if not revision.strip():
+        raise InputError("revision label must not be empty")
+    proto = _get_prototype(s, prototype, create=False)
+    return _get_revision(s, proto, revision, None)  # a planned revision may be annotated before it is measured
+
+
+def set_revision_note(url: str | None, prototype: str, revision: str, text: str) -> None:
+    """Replace the notes of a revision (created under an existing prototype when new)."""
+    with open_store(url, write=True).begin() as s:
+        _revision_for_edit(s, prototype, revision).notes = text
+
+
+def set_revision_parameter(url: str | None, prototype: str, revision: str, key: str, value) -> None:
+    """Set one design parameter (key -> value, stored as text) of a revision."""
+    set_revision_parameters(url, prototype, revision, {key: value})
+
+
+def set_revision_parameters(url: str | None, prototype: str, revision: str, values: dict) -> None:
+    """Set several design parameters of a revision in one transaction."""
+    values = {str(k).strip(): v for k, v in values.items()}
+    if any(not k for k in values):
+        raise InputError("design parameter name must not be empty")
+    with open_store(url, write=True).begin() as s:
+        rev = _revision_for_edit(s, prototype, revision)
+        for key, value in values.items():
+            row = s.scalar(select(S.RevisionParameter).where(S.RevisionParameter.revision_id == rev.id,
+                                                             S.RevisionParameter.key == key))
+            if row is None:
+                s.add(S.RevisionParameter(revision_id=rev.id, key=key, value=str(value)))
+            else:
+                row.value = str(value)
+
+
+def revision_info(url: str | None, prototype: str | None = None) -> list[dict]:
+    """Revisions in revision order: prototype, revision, date, notes, parameters {key: value}, campaigns."""
+    with open_store(url)() as s:
+        _check_prototype(s, prototype)
+        q = select(S.Revision, S.Prototype).join(S.Prototype, S.Revision.prototype_id == S.Prototype.id)
+        if prototype is not None:
+            q = q.where(S.Prototype.name == prototype)
+        out = []
+        for rev, p in s.execute(q).all():
+            camps = s.scalars(select(S.Campaign.name).join(S.CampaignTarget, S.CampaignTarget.campaign_id == S.Campaign.id)
+                              .where(S.CampaignTarget.revision_id == rev.id).distinct()).all()
+            out.append({"prototype": p.name, "revision": rev.label,
+                        "date": rev.date.isoformat() if rev.date else None, "notes": rev.notes,
+                        "parameters": {r.key: r.value for r in sorted(rev.parameters, key=lambda r: r.key)},
+                        "campaigns": sorted(camps), "_key": (p.name, rev.date or dt.date.max, natural_key(rev.label))})
+    out.sort(key=lambda r: r["_key"])
+    for r in out:
+        del r["_key"]
+    return out
+
+
+# ---------------------------------------------------------------- reading back
+
+def parse_manifest_text(text: str, path: str | Path):
+    """Parse manifest text as if it were the file ``path`` (written to a temporary file first)."""
+    from .manifest import parse_manifest
+
+    with tempfile.TemporaryDirectory(prefix="cloakrcs-manifest-") as tmp:
+        tmp_path = Path(tmp) / "manifest.toml"
+        tmp_path.write_text(text, encoding="utf-8")
+        manifest, _ = parse_manifest(tmp_path)
+    return replace(manifest, path=Path(path))
+
+
+def load_campaign_from_store(url: str | None, campaign_id: int, run_id: int | None = None):
+    """Rebuild an :class:`analysis.campaign.Campaign` from the store alone (no data file is read).
+
+    The manifest is re-parsed from the stored text (the text the run ``run_id`` used, when
+    given); raw sweeps come back bit for bit (complex128). Table-shape references still
+    read their table file from the original location.
+    """
+    from .campaign import Campaign, TargetCube, check_campaign
+
+    with open_store(url)() as s:
+        crow = s.get(S.Campaign, campaign_id)
+        if crow is None:
+            raise InputError(f"no campaign {campaign_id} in the store")
+        text = crow.manifest_text
+        if run_id is not None:
+            run = s.get(S.ProcessingRun, run_id)
+            if run is None or run.campaign_id != campaign_id:
+                raise InputError(f"no run {run_id} of campaign {campaign_id} in the store")
+            text = run.manifest_text
+        targets = s.scalars(select(S.CampaignTarget).where(S.CampaignTarget.campaign_id == campaign_id)
+                            .order_by(S.CampaignTarget.position)).all()
+        files = s.execute(select(S.CampaignFile).where(S.CampaignFile.campaign_id == campaign_id)).scalars().all()
+        stored = [(t.id, t.name, t.spec, t.n_ports, t.parameters, t.polarizations, unpack_array(t.angles_deg),
+                   unpack_array(t.repeats), unpack_array(t.data)) for t in targets]
+        file_rows = [(f.target_id, f.path, f.sha256, f.polarization, f.angle_index, f.repeat_index) for f in files]
+        manifest_path, freq = crow.manifest_path, unpack_array(crow.frequency_hz)
+    manifest = parse_manifest_text(text, manifest_path)
+    shapes = {name: spec.get("shape") for _tid, name, spec, *_ in stored}
+    manifest = replace(manifest, targets=tuple(replace(t, shape=shapes.get(t.name, t.shape)) for t in manifest.targets))
+    folder = manifest.folder
+    cubes = {}
+    for tid, name, _spec, n_ports, params, pols, angles, repeats, data in stored:
+        spec = manifest.target(name)
+        paths = np.empty(data.shape[:3], dtype=object)
+        hashes = {}
+        for target_id, rel, sha, pol, ia, ir in file_rows:
+            if target_id == tid:
+                p = str(folder / rel)
+                paths[pols.index(pol), ia, ir] = p
+                hashes[p] = sha
+        cube = xr.DataArray(data, dims=("polarization", "angle", "repeat", "frequency"),
+                            coords={"polarization": list(pols), "angle": angles, "repeat": repeats, "frequency": freq},
+                            name=name, attrs={"units": "VNA ratio", "target": name, "role": spec.role})
+        cubes[name] = TargetCube(spec=spec, data=cube, files=paths, hashes=hashes, n_ports=n_ports,
+                                 parameters=dict(params))
+
+    def fail(err):
+        raise err
+
+    warnings: list[str] = []
+    check_campaign(manifest, cubes, fail, warnings.append)
+    return Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
+
+
+def load_result(url: str | None, run_id: int) -> dict:
+    """Everything a report or the dashboard needs from one stored run.
+
+    Returns a dict: ``run_id``, ``campaign_id``, ``campaign``, ``prototype``, ``date`` (ISO or
+    None), ``processed_at`` (ISO, UTC), ``software_version``, ``settings`` (the run's settings
+    dict), ``process_settings`` (``ProcessSettings.as_dict()``), ``summary`` (as summary.json),
+    ``metrics`` and ``checks`` (lists of dicts as in ProcessingResult; non-finite numbers are
+    None), ``floor`` {pol: dBsm}, ``warnings``; ``frequency_hz`` (Hz), ``valid_mask``,
+    ``band_mask`` (bool arrays over frequency); ``targets`` {name: {role, revision, baseline,
+    gate, shape, amplitude (complex xarray (polarization, angle, frequency), m),
+    floor (xarray (polarization, frequency), m^2), rep_rel_u (xarray or None)}};
+    ``reductions`` {(subject, pol): xarray.Dataset reduction_db, bound (angle, frequency)}; and
+    ``result``: the same as an :class:`analysis.process.ProcessingResult`.
+    """
+    from .process import ProcessingResult, TargetResult
+
+    with open_store(url)() as s:
+        run = s.get(S.ProcessingRun, run_id)
+        if run is None:
+            raise InputError(f"no run {run_id} in the store")
+        crow = s.get(S.Campaign, run.campaign_id)
+        proto = s.get(S.Prototype, crow.prototype_id)
+        trows = s.scalars(select(S.TargetResultRow).where(S.TargetResultRow.run_id == run_id)
+                          .order_by(S.TargetResultRow.position)).all()
+        reds = s.scalars(select(S.ReductionRow).where(S.ReductionRow.run_id == run_id).order_by(S.ReductionRow.id)).all()
+        mrows = s.scalars(select(S.MetricRow).where(S.MetricRow.run_id == run_id).order_by(S.MetricRow.id)).all()
+        crows = s.scalars(select(S.CheckRow).where(S.CheckRow.run_id == run_id).order_by(S.CheckRow.id)).all()
+        f = unpack_array(run.frequency_hz)
+        targets: dict = {}
+        for t in trows:
+            coords = {"polarization": list(t.polarizations), "angle": unpack_array(t.angles_deg), "frequency": f}
+            dims = ("polarization", "angle", "frequency")
+            targets[t.name] = TargetResult(
+                name=t.name, role=t.role, revision=t.revision, baseline=t.baseline,
+                amplitude=xr.DataArray(unpack_array(t.amplitude), dims=dims, coords=coords, name=t.name),
+                floor=xr.DataArray(unpack_array(t.floor), dims=("polarization", "frequency"),
+                                   coords={"polarization": list(t.polarizations), "frequency": f}),
+                rep_rel_u=None if t.rep_rel_u is None else xr.DataArray(unpack_array(t.rep_rel_u), dims=dims,
+                                                                        coords=coords),
+                gate=dict(t.gate), shape=t.shape)
+        reductions = {}
+        for r in reds:
+            bound = np.asarray(BOUND_LABELS, dtype=object)[unpack_array(r.bound)]
+            reductions[(r.subject, r.polarization)] = xr.Dataset(
+                {"reduction_db": (("angle", "frequency"), unpack_array(r.reduction_db)),
+                 "bound": (("angle", "frequency"), bound)},
+                coords={"angle": unpack_array(r.angles_deg), "frequency": unpack_array(r.frequency_hz)})
+        metrics = [{**{k: getattr(m, k) for k in _METRIC_COLUMNS}, **m.extra} for m in mrows]
+        checks = [{**{k: getattr(c, k) for k in _CHECK_COLUMNS}, **c.extra} for c in crows]
+        result = ProcessingResult(
+            campaign=crow.name, prototype=proto.name, date=crow.date.isoformat() if crow.date else None,
+            frequency_hz=f, valid_mask=unpack_array(run.valid_mask), band_mask=unpack_array(run.band_mask),
+            targets=targets, checks=checks, floor=dict(run.floor), metrics=metrics, settings=dict(run.settings),
+            warnings=list(run.warnings), reductions=reductions)
+        out = {"run_id": run.id, "campaign_id": crow.id, "campaign": crow.name, "prototype": proto.name,
+               "date": result.date, "processed_at": _utc(run.processed_at).isoformat(),
+               "software_version": run.software_version, "settings": result.settings,
+               "process_settings": dict(run.process_settings), "summary": result.summary(), "metrics": metrics,
+               "checks": checks, "floor": result.floor, "warnings": result.warnings, "frequency_hz": f,
+               "valid_mask": result.valid_mask, "band_mask": result.band_mask,
+               "targets": {name: {"role": t.role, "revision": t.revision, "baseline": t.baseline, "gate": t.gate,
+                                  "shape": t.shape, "amplitude": t.amplitude, "floor": t.floor,
+                                  "rep_rel_u": t.rep_rel_u} for name, t in targets.items()},
+               "reductions": reductions, "result": result}
+    return out
