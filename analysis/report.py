@@ -1,0 +1,570 @@
+"""Self-contained HTML report of a processing run (one file, opens offline, prints).
+
+``render_report(result, campaign) -> str``: plotly.js is inlined once in the page head, each
+figure is a div plus a ``Plotly.newPlot`` call on its JSON; no tag loads anything from any
+address (no ``<script src>``, ``<link href>``, images or CSS ``url()``). The summary table cells
+carry their raw values in ``data-value`` (repr of the float in summary.json) beside the
+printed text (dB to two decimals, GHz to three, MHz to one).
+
+``write_report`` writes the HTML atomically and, on request, PNG files of the figures (kaleido,
+which drives a local Chromium) and a PDF of the whole report (Chromium's headless print).
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import os
+import re
+import shutil
+import subprocess
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import figures
+from .constants import C0
+from .errors import InputError
+
+PLOTLY_CONFIG = {"displaylogo": False, "responsive": True,
+                 "toImageButtonOptions": {"format": "png", "scale": 2}}
+CHROMIUM_CANDIDATES = ("chromium", "chromium-browser", "google-chrome", "chrome")
+PRINT_WIDTH_PX = 680
+
+BOUND_WORDS = {"lower": "at least", "upper": "at most"}
+
+
+@dataclass
+class FigureSpec:
+    """One figure slot of the report: its element id, a caption and the figure (None: a note)."""
+
+    id: str
+    section: str
+    caption: str
+    figure: object | None = None
+    note: str = ""
+
+
+# --------------------------------------------------------------------------- formatting
+
+def _esc(x) -> str:
+    return html.escape(str(x), quote=True)
+
+
+def _finite(x) -> bool:
+    return isinstance(x, (int, float, np.floating, np.integer)) and not isinstance(x, bool) and math.isfinite(float(x))
+
+
+def _fmt(x, digits: int, scale: float = 1.0) -> str:
+    return f"{float(x) / scale:.{digits}f}" if _finite(x) else "—"
+
+
+def _data_value(x) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return ""
+    if isinstance(x, (bool, np.bool_)):
+        return "true" if x else "false"
+    if isinstance(x, (float, np.floating)):
+        return repr(float(x))
+    return str(x)
+
+
+def _td(key: str, value, text: str, cls: str = "num") -> str:
+    return f'<td class="{cls}" data-key="{_esc(key)}" data-value="{_esc(_data_value(value))}">{_esc(text)}</td>'
+
+
+def slug(*parts) -> str:
+    """An element id from names: letters, digits, '-' and '_' only."""
+    return re.sub(r"[^A-Za-z0-9_-]+", "-", "-".join(str(p) for p in parts)).strip("-").lower()
+
+
+def reduction_text(value, bound: str) -> str:
+    """'12.34', 'at least 12.34', 'at most 12.34' or 'undetermined' (DESIGN.md 3.7 bounds)."""
+    if bound == "undetermined":
+        return "undetermined"
+    text = _fmt(value, 2)
+    return f"{BOUND_WORDS[bound]} {text}" if bound in BOUND_WORDS and text != "—" else text
+
+
+def floor_note(m: dict) -> str:
+    n, total = m.get("floor_limited_points") or 0, m.get("points") or 0
+    if not n:
+        return "none"
+    why = {"lower": "subject at floor: lower bound", "upper": "baseline at floor: upper bound",
+           "undetermined": "both at floor: undetermined"}.get(m.get("bound"), "")
+    return f"{n} of {total} points" + (f"; {why}" if why else "")
+
+
+# --------------------------------------------------------------------------- tables
+
+SUMMARY_COLUMNS = (
+    ("subject", "subject"), ("baseline", "baseline"), ("polarization", "pol."),
+    ("band_reduction_db", "band-averaged reduction (dB)"), ("band_reduction_uncertainty_db", "U, k = 2 (dB)"),
+    ("best_reduction_db", "best reduction (dB)"), ("best_frequency_hz", "at (GHz)"),
+    ("bandwidth_hz", "bandwidth above threshold (MHz)"), ("bandwidth_start_hz", "from (GHz)"),
+    ("bandwidth_stop_hz", "to (GHz)"), ("fractional_bandwidth", "fractional (%)"),
+    ("worst_angle_deg", "worst angle (deg)"), ("worst_angle_reduction_db", "worst-angle reduction (dB)"),
+    ("mounting_offset_deg", "mounting offset (deg)"), ("floor_limited_points", "floor-limited notes"),
+)
+
+
+def summary_table(result) -> str:
+    """The metrics table: one row per metrics row (subject, polarization), id="summary-table"."""
+    head = "".join(f"<th scope=\"col\">{_esc(label)}</th>" for _, label in SUMMARY_COLUMNS)
+    rows = []
+    for m in result.metrics:
+        bound = m.get("bound", "none")
+        trunc = "≥ " if m.get("bandwidth_truncated") else ""
+        cells = [
+            _td("subject", m["subject"], m["subject"], "text"), _td("baseline", m["baseline"], m["baseline"], "text"),
+            _td("polarization", m["polarization"], m["polarization"], "text"),
+            _td("band_reduction_db", m["band_reduction_db"], reduction_text(m["band_reduction_db"], bound)),
+            _td("band_reduction_uncertainty_db", m["band_reduction_uncertainty_db"],
+                "± " + _fmt(m["band_reduction_uncertainty_db"], 2)),
+            _td("best_reduction_db", m["best_reduction_db"], _fmt(m["best_reduction_db"], 2)),
+            _td("best_frequency_hz", m["best_frequency_hz"], _fmt(m["best_frequency_hz"], 3, 1e9)),
+            _td("bandwidth_hz", m["bandwidth_hz"], trunc + _fmt(m["bandwidth_hz"], 1, 1e6)),
+            _td("bandwidth_start_hz", m["bandwidth_start_hz"], _fmt(m["bandwidth_start_hz"], 3, 1e9)),
+            _td("bandwidth_stop_hz", m["bandwidth_stop_hz"], _fmt(m["bandwidth_stop_hz"], 3, 1e9)),
+            _td("fractional_bandwidth", m["fractional_bandwidth"], _fmt(m["fractional_bandwidth"], 1, 0.01)),
+            _td("worst_angle_deg", m["worst_angle_deg"], _fmt(m["worst_angle_deg"], 1)),
+            _td("worst_angle_reduction_db", m["worst_angle_reduction_db"], _fmt(m["worst_angle_reduction_db"], 2)),
+            _td("mounting_offset_deg", m.get("mounting_offset_deg"), _fmt(m.get("mounting_offset_deg"), 2)
+                + (" (aligned)" if m.get("angles_aligned") else "")),
+            _td("floor_limited_points", m.get("floor_limited_points"), floor_note(m), "text"),
+        ]
+        rows.append(f'<tr data-bound="{_esc(bound)}">{"".join(cells)}</tr>')
+    if not rows:
+        rows.append(f'<tr><td colspan="{len(SUMMARY_COLUMNS)}">No subject has a baseline: no reduction '
+                    f'metrics.</td></tr>')
+    return (f'<div class="scroll"><table id="summary-table" class="data summary"><thead><tr>{head}</tr></thead>'
+            f'<tbody>{"".join(rows)}</tbody></table></div>')
+
+
+def checks_table(result) -> str:
+    cols = (("target", "check target"), ("polarization", "pol."), ("max_error_db", "max error (dB)"),
+            ("rms_error_db", "RMS error (dB)"), ("mean_error_db", "mean error (dB)"),
+            ("tolerance_db", "tolerance (dB)"), ("points", "points"), ("passed", "result"))
+    head = "".join(f'<th scope="col">{_esc(label)}</th>' for _, label in cols)
+    rows = []
+    for c in result.checks:
+        cells = [_td("target", c["target"], c["target"], "text"),
+                 _td("polarization", c["polarization"], c["polarization"], "text")]
+        cells += [_td(k, c[k], _fmt(c[k], 2)) for k in ("max_error_db", "rms_error_db", "mean_error_db",
+                                                       "tolerance_db")]
+        cells.append(_td("points", c["points"], str(c["points"])))
+        cells.append(_td("passed", c["passed"], "pass" if c["passed"] else "FAIL",
+                         "text pass" if c["passed"] else "text fail"))
+        rows.append(f"<tr>{''.join(cells)}</tr>")
+    if not rows:
+        return '<p id="checks-table" class="note">No check target in this campaign.</p>'
+    return f'<table id="checks-table" class="data"><thead><tr>{head}</tr></thead><tbody>{"".join(rows)}</tbody></table>'
+
+
+def floor_table(result) -> str:
+    rows = "".join(f"<tr>{_td('polarization', p, p, 'text')}{_td('floor_dbsm', v, _fmt(v, 1))}</tr>"
+                   for p, v in result.floor.items())
+    return ('<table id="floor-table" class="data compact"><thead><tr><th scope="col">pol.</th>'
+            '<th scope="col">median floor of the subjects (dBsm)</th></tr></thead>'
+            f"<tbody>{rows}</tbody></table>")
+
+
+def _kv_table(table_id: str, items) -> str:
+    rows = "".join(f'<tr><th scope="row">{_esc(k)}</th><td>{v}</td></tr>' for k, v in items)
+    return f'<table id="{table_id}" class="kv"><tbody>{rows}</tbody></table>'
+
+
+def _ghz_range(pair) -> str:
+    return "—" if not pair else f"{pair[0] / 1e9:.4f} – {pair[1] / 1e9:.4f} GHz"
+
+
+def provenance(result, campaign) -> str:
+    s = result.settings
+    window = s.get("window")
+    if window == "kaiser":
+        window = f"kaiser (beta {s.get('kaiser_beta'):g})"
+    sector = s.get("sector_deg")
+    items = [
+        ("software", _esc(f"cloakrcs {s.get('software_version')}")),
+        ("manifest", f"<code>{_esc(s.get('manifest'))}</code>"),
+        ("window", _esc(window)),
+        ("zero padding", _esc(f"x{s.get('pad_factor')}")),
+        ("gate edges", _esc(f"{100 * float(s.get('edge_fraction', 0)):g} % of the span each side")),
+        ("valid band", _esc(_ghz_range(s.get("valid_band_hz")))),
+        ("reporting band", _esc(_ghz_range(s.get("reporting_band_hz")))),
+        ("angular sector", _esc("all measured angles" if not sector else f"{sector[0]:g} to {sector[1]:g} deg")),
+        ("bandwidth threshold", _esc(f"{s.get('threshold_db'):g} dB")),
+        ("floor margin", _esc(f"{s.get('floor_margin_db'):g} dB")),
+        ("check tolerance", _esc(f"{s.get('check_tolerance_db'):g} dB")),
+        ("coverage factor", _esc(f"k = {s.get('coverage_k', 2):g}")),
+        ("auto gate", _esc("on" + (f", reference-plane offset {s['estimated_offset_m']:.4f} m from "
+                                   f"{s.get('offset_reference')}" if s.get("estimated_offset_m") is not None else "")
+                           if s.get("auto_gate") else "off")),
+        ("drift correction", _esc("on" if s.get("drift_correction") else "off")),
+        ("angle alignment", _esc("on" if s.get("align_angles") else "off")),
+        ("process settings", f"<code>{_esc(json.dumps(s.get('process_settings'), sort_keys=True))}</code>"),
+    ]
+    gates = "".join(
+        f"<tr><td>{_esc(name)}</td><td class=\"num\">{g['center_m']:.4f}</td><td class=\"num\">{g['span_m']:.4f}</td>"
+        f"<td>{_esc(g.get('floor_method', ''))}</td></tr>" for name, g in s.get("gates", {}).items())
+    refs = "".join(
+        f"<tr><td>{_esc(r.get('polarization'))}</td><td>{_esc(r.get('target') or '—')}</td>"
+        f"<td>{_esc(_shape_text(r.get('shape')))}</td><td>{_esc(r.get('method'))}"
+        f"{' (approximate)' if r.get('approximate') else ''}</td></tr>" for r in s.get("references", []))
+    files = "".join(f'<tr><td><code>{_esc(p)}</code></td><td class="hash"><code>{_esc(h)}</code></td></tr>'
+                    for p, h in s.get("files", {}).items())
+    manifest_text = getattr(getattr(campaign, "manifest", None), "text", "") if campaign is not None else ""
+    manifest_block = (f'<details id="manifest-text"><summary>Manifest text</summary><pre>{_esc(manifest_text)}'
+                      f"</pre></details>" if manifest_text else
+                      '<p class="note">The manifest text was not available when this report was made; its path '
+                      "and the file hashes identify the data.</p>")
+    return (
+        _kv_table("settings-table", items)
+        + '<h3>Gates</h3><table id="gates-table" class="data"><thead><tr><th scope="col">target</th>'
+          '<th scope="col">centre (m)</th><th scope="col">span (m)</th><th scope="col">floor estimate</th></tr>'
+          f"</thead><tbody>{gates}</tbody></table>"
+        + '<h3>Calibration references</h3><table id="references-table" class="data"><thead><tr>'
+          '<th scope="col">pol.</th><th scope="col">reference</th><th scope="col">shape</th>'
+          f'<th scope="col">method</th></tr></thead><tbody>{refs}</tbody></table>'
+        + f'<h3>Files ({len(s.get("files", {}))}, SHA-256)</h3><table id="files-table" class="data files"><thead><tr>'
+          f'<th scope="col">file (relative to the manifest)</th><th scope="col">SHA-256</th></tr></thead>'
+          f"<tbody>{files}</tbody></table>"
+        + manifest_block)
+
+
+def _shape_text(shape) -> str:
+    if not shape:
+        return "—"
+    dims = ", ".join(f"{k} {v:g}" if isinstance(v, (int, float)) else f"{k} {v}"
+                     for k, v in shape.items() if k != "shape")
+    return f"{shape.get('shape')} ({dims})" if dims else str(shape.get("shape"))
+
+
+# --------------------------------------------------------------------------- statements
+
+def uncertainty_statement(result) -> str:
+    s = result.settings
+    k = s.get("coverage_k", 2)
+    spans = [g["span_m"] for g in s.get("gates", {}).values()]
+    cell = f" (c0 / (2 x gate span) = {C0 / (2 * min(spans)) / 1e6:.0f} MHz here)" if spans else ""
+    margin = s.get("floor_margin_db", 10)
+    return f"""<div id="uncertainty-statement">
+<p>The ± values are expanded uncertainties with coverage factor k = {k:g}, combined per the GUM
+(JCGM 100:2008) from the floor interference error, 20 log10(1 ± 10<sup>−SNR/20</sup>) dB for a
+signal-to-floor ratio SNR, and the repeatability of repeated sweeps. Frequency samples closer than one
+inverse gate duration{_esc(cell)} are treated as fully correlated, so averaging them does not shrink the
+uncertainty. The calibration (reference target, its tolerance, the system response) is common to the
+baseline and the cloaked subject measured in the same setup and cancels in the reduction; it does not
+cancel in absolute RCS, whose accuracy is seldom better than about 0.5 dB in practice (Knott, <i>Radar
+Cross Section Measurements</i>).</p>
+<p>The floor is estimated from the background measurements. It does not see the interaction between
+target and support, so it is a lower estimate of the true floor, and the uncertainties above are lower
+estimates too. A point less than {margin:g} dB above the floor is floor-limited and its reduction is a
+bound: "at least X dB" when the cloaked subject is at the floor (lower bound), "at most X dB" when the
+baseline is (upper bound), "undetermined" when both are. The band-averaged reduction is
+10 log10(Σ σ<sub>baseline</sub> / Σ σ<sub>subject</sub>) over every frequency of the reporting band and
+every angle of the sector (linear sums, then dB).</p>
+</div>"""
+
+
+RF_CAUTION = """<div id="rf-caution" class="caution">
+<p><strong>RF exposure.</strong> A vector network analyser alone radiates milliwatts, but chamber setups
+often add power amplifiers and high-gain horns. In the far field the power density is
+S = P G / (4 π r<sup>2</sup>) (P transmitted power in W, G antenna gain as a ratio, r distance in m), so it
+can be high close to a horn. Keep people out of the beam while transmitting, and follow the site's RF
+safety rules and local regulations, which decide. Any exposure figure this software gives is indicative
+only; nothing in this report states that a setup complies with an exposure limit.</p>
+</div>"""
+
+
+# --------------------------------------------------------------------------- figures
+
+def _spec_of(campaign, name):
+    if campaign is None:
+        return None
+    return next((t for t in campaign.manifest.targets if t.name == name), None)
+
+
+def build_figures(result, campaign=None) -> list[FigureSpec]:
+    """Every figure of the report, in order (pure: builds plotly figures, draws nothing)."""
+    out: list[FigureSpec] = []
+    freq = result.frequency_hz
+    band = result.band_mask
+    f_mid = float(np.median(freq[band])) if band.any() else float(np.median(freq))
+    for m in result.metrics:
+        subj, base, pol = m["subject"], m["baseline"], m["polarization"]
+        names = [base, subj]
+        angles = figures.main_angles(result, subj, pol)
+        out.append(FigureSpec(slug("fig-rcs", subj, pol), "rcs",
+                              f"RCS of {base} (baseline) and {subj} versus frequency, {pol}, at "
+                              f"{', '.join(f'{a:g}' for a in angles)} deg; dotted: noise floor.",
+                              figures.fig_rcs_vs_frequency(result, names, pol, angles)))
+        fsel = [f_mid] + ([m["best_frequency_hz"]] if _finite(m.get("best_frequency_hz")) else [])
+        fsel = [f for i, f in enumerate(fsel) if all(abs(f - g) > 1e-3 for g in fsel[:i])]
+        out.append(FigureSpec(slug("fig-polar", subj, pol), "polar",
+                              f"Polar patterns of {base} and {subj}, {pol}, at the reporting-band centre"
+                              + (" and the best frequency" if len(fsel) > 1 else "") + ".",
+                              figures.fig_polar(result, names, pol, fsel)))
+        if (subj, pol) in result.reductions:
+            out.append(FigureSpec(slug("fig-map", subj, pol), "map",
+                                  f"Reduction 10 log10(σ_{base} / σ_{subj}) over angle and frequency (valid band), "
+                                  f"{pol}.", figures.fig_reduction_map(result, subj, pol)))
+        out.append(FigureSpec(slug("fig-sector", subj, pol), "sector",
+                              f"Sector reduction R(f), {pol}; shaded: the bandwidth above the threshold.",
+                              figures.fig_sector_curve(result, subj, pol)))
+    for c in result.checks:
+        spec = _spec_of(campaign, c["target"])
+        specular = spec.specular_deg if spec is not None else 0.0
+        out.append(FigureSpec(slug("fig-check", c["target"], c["polarization"]), "check",
+                              f"Check target {c['target']} against theory, {c['polarization']}; shaded: "
+                              f"the tolerance.", figures.fig_check(result, c, specular)))
+    out.append(_range_profile_spec(result, campaign))
+    return out
+
+
+def _range_profile_spec(result, campaign) -> FigureSpec:
+    fid = "fig-range-profile"
+    if campaign is None:
+        return FigureSpec(fid, "range", "Range profile with the gate.",
+                          note="The raw sweeps were not available when this report was made (it was rendered from "
+                               "the results store), so the range profile is omitted; the gates used are listed "
+                               "under Settings and provenance.")
+    s = result.settings
+    target, pol, angle, _, _ = figures.campaign_sweeps(campaign)
+    gate = s.get("gates", {}).get(target) or result.targets[target].gate
+    fig = figures.fig_range_profile(campaign, target, pol, 0.0, gate=gate, window=s.get("window", "kaiser"),
+                                    kaiser_beta=s.get("kaiser_beta") or 6.0, pad_factor=s.get("pad_factor") or 4,
+                                    edge_fraction=s.get("edge_fraction", 0.2))
+    return FigureSpec(fid, "range", f"Range profile of {target}, {pol}, {angle:g} deg, raw and background "
+                                    f"subtracted, with the gate (right axis).", fig)
+
+
+def _figure_html(spec: FigureSpec) -> str:
+    if spec.figure is None:
+        return (f'<figure class="figure missing" id="{spec.id}-box"><p class="note" id="{spec.id}">{_esc(spec.note)}'
+                f"</p><figcaption>{_esc(spec.caption)}</figcaption></figure>")
+    div = spec.figure.to_html(full_html=False, include_plotlyjs=False, include_mathjax=False,
+                              div_id=spec.id, config=PLOTLY_CONFIG)
+    return f'<figure class="figure" id="{spec.id}-box">{div}<figcaption>{_esc(spec.caption)}</figcaption></figure>'
+
+
+# --------------------------------------------------------------------------- page
+
+CSS = """
+:root { --ink:#1d2733; --muted:#5b6775; --rule:#d8dde3; --band:#f4f6f8; --accent:#1f7a8c; --warn:#9a4b16; }
+* { box-sizing: border-box; }
+body { margin: 0; color: var(--ink); background: #fff; line-height: 1.45;
+  font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif; font-size: 15px; }
+main { max-width: 1120px; margin: 0 auto; padding: 28px 28px 60px; }
+header { border-bottom: 2px solid var(--accent); padding-bottom: 12px; margin-bottom: 20px; }
+h1 { font-size: 1.6em; margin: 0 0 4px; font-weight: 600; }
+h2 { font-size: 1.22em; margin: 34px 0 10px; padding-bottom: 4px; border-bottom: 1px solid var(--rule); font-weight: 600; }
+h3 { font-size: 1.02em; margin: 22px 0 8px; font-weight: 600; }
+.meta { color: var(--muted); margin: 0; }
+nav ol { columns: 2; color: var(--muted); margin: 8px 0 0; }
+nav a { color: var(--accent); text-decoration: none; }
+table { border-collapse: collapse; margin: 8px 0 14px; font-size: 0.9em; }
+table.data { width: 100%; }
+th, td { border-bottom: 1px solid var(--rule); padding: 5px 8px; text-align: left; vertical-align: top; }
+thead th { background: var(--band); font-weight: 600; border-bottom: 1px solid #b9c1ca; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+.scroll { overflow-x: auto; }
+table.summary { font-size: 0.84em; }
+table.summary td.text:last-child { min-width: 11em; }
+td.fail { color: var(--warn); font-weight: 600; }
+table.kv th { font-weight: 500; color: var(--muted); width: 13em; }
+table.files td.hash code { font-size: 0.85em; word-break: break-all; }
+code, pre { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, "Liberation Mono", monospace; font-size: 0.88em; }
+pre { background: var(--band); padding: 10px 12px; overflow-x: auto; border: 1px solid var(--rule); }
+.note { color: var(--muted); font-style: italic; }
+.warnings li { color: var(--warn); }
+figure.figure { margin: 18px 0 26px; page-break-inside: avoid; break-inside: avoid; }
+figcaption { color: var(--muted); font-size: 0.88em; margin-top: 4px; }
+.caution { border-left: 4px solid var(--warn); background: #fbf5ef; padding: 4px 14px; }
+footer { color: var(--muted); font-size: 0.85em; margin-top: 40px; border-top: 1px solid var(--rule); padding-top: 8px; }
+@media print {
+  body { font-size: 10.5pt; }
+  main { max-width: none; padding: 0; }
+  nav { display: none; }
+  h2 { page-break-after: avoid; break-after: avoid; }
+  table { page-break-inside: auto; }
+  tr { page-break-inside: avoid; break-inside: avoid; }
+  .scroll { overflow: visible; }
+  table.summary { font-size: 7pt; }
+  table.summary td.num { white-space: normal; }
+  table.files { font-size: 6.5pt; }
+  table.files td { padding: 1px 6px; }
+  .modebar-container { display: none !important; }
+}
+@page { margin: 14mm; }
+"""
+
+# Resize figures to the printed width before printing, back to the window afterwards.
+PRINT_JS = """
+(function () {
+  function each(fn) { document.querySelectorAll('.plotly-graph-div').forEach(fn); }
+  window.addEventListener('beforeprint', function () { each(function (d) { Plotly.relayout(d, {width: %d}); }); });
+  window.addEventListener('afterprint', function () { each(function (d) { Plotly.relayout(d, {width: null, autosize: true}); }); });
+})();
+""" % PRINT_WIDTH_PX
+
+
+def _plotly_js() -> str:
+    from plotly.offline import get_plotlyjs
+
+    js = get_plotlyjs()
+    return js.replace("</script", "<\\/script")  # cannot close the inline tag early
+
+
+def render_report(result, campaign=None) -> str:
+    """The whole report as one HTML document (str). ``campaign`` may be None (no range profile)."""
+    figs = build_figures(result, campaign)
+    by_section: dict[str, list[FigureSpec]] = {}
+    for spec in figs:
+        by_section.setdefault(spec.section, []).append(spec)
+
+    def section_figs(*names):
+        return "".join(_figure_html(s) for n in names for s in by_section.get(n, []))
+
+    s = result.settings
+    title = f"RCS report: {result.campaign}"
+    meta = " · ".join(x for x in (f"prototype {result.prototype}" if result.prototype else "",
+                                   f"measured {result.date}" if result.date else "",
+                                   f"cloakrcs {s.get('software_version')}") if x)
+    warnings = ("<ul class=\"warnings\" id=\"warnings\">" + "".join(f"<li>{_esc(w)}</li>" for w in result.warnings)
+                + "</ul>") if result.warnings else '<p id="warnings" class="note">No warnings.</p>'
+    thr = s.get("threshold_db")
+    sections = [
+        ("summary", "Summary",
+         f'<p>Reduction = 10 log10(σ<sub>baseline</sub> / σ<sub>subject</sub>), positive = less scattering; '
+         f'band {_esc(_ghz_range(s.get("reporting_band_hz")))}, bandwidth threshold {thr:g} dB. '
+         f'Floor-limited values are bounds (see Uncertainty); "≥" marks a bandwidth that reaches a band edge '
+         f'(the true one may be wider). Mounting offset: subject minus baseline, from the angular patterns.</p>'
+         + summary_table(result) + "<h3>Check targets</h3>" + checks_table(result)
+         + "<h3>Noise floor</h3>" + floor_table(result) + "<h3>Warnings</h3>" + warnings),
+        ("rcs", "RCS versus frequency", section_figs("rcs")),
+        ("polar", "Polar patterns", section_figs("polar")),
+        ("reduction", "Reduction", section_figs("map", "sector")),
+        ("check", "Check target against theory",
+         section_figs("check") or '<p class="note">No check target in this campaign.</p>'),
+        ("range", "Range profile and gate", section_figs("range")),
+        ("uncertainty", "Uncertainty", uncertainty_statement(result)),
+        ("provenance", "Settings and provenance", provenance(result, campaign)),
+        ("safety", "RF-exposure caution", RF_CAUTION),
+    ]
+    nav = "".join(f'<li><a href="#{sid}">{_esc(h)}</a></li>' for sid, h, _ in sections)
+    body = "".join(f'<section id="{sid}"><h2>{_esc(h)}</h2>{content}</section>' for sid, h, content in sections)
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+        f"<meta name=\"generator\" content=\"cloakrcs {_esc(s.get('software_version'))}\">"
+        f"<title>{_esc(title)}</title><style>{CSS}</style>\n"
+        f"<script id=\"plotly-bundle\">{_plotly_js()}</script>\n</head><body><main>"
+        f"<header><h1>{_esc(title)}</h1><p class=\"meta\">{_esc(meta)}</p>"
+        f"<nav><ol>{nav}</ol></nav></header>{body}"
+        "<footer>Self-contained report: plotly.js is embedded; the page loads nothing from any network "
+        "address.</footer></main>"
+        f"<script>{PRINT_JS}</script></body></html>\n")
+
+
+# --------------------------------------------------------------------------- files and static export
+
+def find_chromium() -> str | None:
+    """Path of a local Chromium: $BROWSER_PATH, /usr/bin/chromium, or one on PATH."""
+    env = os.environ.get("BROWSER_PATH")
+    if env and Path(env).exists():
+        return env
+    if Path("/usr/bin/chromium").exists():
+        return "/usr/bin/chromium"
+    for name in CHROMIUM_CANDIDATES:
+        found = shutil.which(name)
+        if found:
+            return found
+    return None
+
+
+def _chromium_or_fail(what: str) -> str:
+    path = find_chromium()
+    if path is None:
+        raise InputError(f"{what} needs Chromium (install Debian's chromium package or set BROWSER_PATH)")
+    return path
+
+
+def export_png(specs: list[FigureSpec], out_dir, scale: float = 2.0) -> list[Path]:
+    """Write each figure as OUT_DIR/<figure id>.png with kaleido (a local Chromium, offline)."""
+    try:
+        import kaleido  # noqa: F401
+    except ImportError:
+        raise InputError("--png needs kaleido: pip install 'cloakrcs[export]'") from None
+    import plotly.io as pio
+
+    os.environ.setdefault("BROWSER_PATH", _chromium_or_fail("--png"))
+    out = Path(out_dir)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the PNG folder: {exc.strerror or exc}", out) from None
+    todo = [s for s in specs if s.figure is not None]
+    paths = [out / f"{s.id}.png" for s in todo]
+    if todo:
+        pio.write_images([s.figure for s in todo], paths, format="png", width=1000, scale=scale)
+    return paths
+
+
+def export_pdf(html_path, pdf_path, timeout_s: float = 180.0) -> Path:
+    """Print the report to one PDF with headless Chromium (local file, no network)."""
+    chromium = _chromium_or_fail("--pdf")
+    pdf = Path(pdf_path).resolve()
+    with tempfile.TemporaryDirectory(prefix="cloakrcs-chromium-") as profile:
+        cmd = [chromium, "--headless", "--disable-gpu", "--no-first-run", "--disable-extensions",
+               "--disable-background-networking", "--disable-component-update", "--disable-sync",
+               f"--user-data-dir={profile}", f"--window-size={PRINT_WIDTH_PX + 40},1000",
+               "--virtual-time-budget=30000", "--run-all-compositor-stages-before-draw",
+               "--no-pdf-header-footer", f"--print-to-pdf={pdf}", Path(html_path).resolve().as_uri()]
+        if hasattr(os, "geteuid") and os.geteuid() == 0:
+            cmd.insert(1, "--no-sandbox")
+        try:
+            proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s)
+        except subprocess.TimeoutExpired:
+            raise InputError(f"Chromium did not finish printing the PDF in {timeout_s:g} s", pdf) from None
+    if proc.returncode != 0 or not pdf.exists() or pdf.stat().st_size == 0:
+        tail = (proc.stderr or "").strip().splitlines()[-1:] or [""]
+        raise InputError(f"Chromium could not print the PDF (status {proc.returncode}): {tail[0]}", pdf)
+    return pdf
+
+
+def _readable(path: Path) -> None:
+    """Give a written report the usual permissions (the temporary file behind it was 0600)."""
+    umask = os.umask(0)
+    os.umask(umask)
+    try:
+        os.chmod(path, 0o666 & ~umask)
+    except OSError:
+        pass
+
+
+def write_report(result, campaign, out_file, png_dir=None, pdf_file=None) -> dict[str, object]:
+    """Write the HTML report (atomically), optionally PNG figures and a PDF; returns the paths."""
+    from .outputs import atomic_write
+
+    out = Path(out_file)
+    if out.parent and not out.parent.exists():
+        try:
+            out.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"cannot create the report folder: {exc.strerror or exc}", out.parent) from None
+    text = render_report(result, campaign)
+    try:
+        atomic_write(out, lambda fh: fh.write(text))
+    except OSError as exc:
+        raise InputError(f"cannot write the report: {exc.strerror or exc}", out) from None
+    _readable(out)
+    paths: dict[str, object] = {"report": out}
+    if png_dir:
+        paths["png"] = export_png(build_figures(result, campaign), png_dir)
+    if pdf_file:
+        paths["pdf"] = export_pdf(out, pdf_file)
+    return paths
