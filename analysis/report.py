@@ -133,7 +133,8 @@ def summary_table(result) -> str:
             _td("worst_angle_deg", m["worst_angle_deg"], _fmt(m["worst_angle_deg"], 1)),
             _td("worst_angle_reduction_db", m["worst_angle_reduction_db"], _fmt(m["worst_angle_reduction_db"], 2)),
             _td("mounting_offset_deg", m.get("mounting_offset_deg"), _fmt(m.get("mounting_offset_deg"), 2)
-                + (" (aligned)" if m.get("angles_aligned") else "")),
+                + (" (aligned)" if m.get("angles_aligned") else "")
+                + ("" if m.get("mounting_offset_reliable", True) else " (not reliable: patterns share too little)")),
             _td("floor_limited_points", m.get("floor_limited_points"), floor_note(m), "text"),
         ]
         rows.append(f'<tr data-bound="{_esc(bound)}">{"".join(cells)}</tr>')
