@@ -127,9 +127,24 @@ def pattern_fields(pattern: str) -> set[str]:
     return set(re.findall(r"\{([a-z]+)\}", pattern))
 
 
-def find_sweep_files(manifest: Manifest, spec: TargetSpec) -> list[SweepFile]:
-    """Files matching a target's pattern, with the fields parsed; InputError if none or clashing."""
+def _inside(path: Path, root: Path) -> bool:
+    try:
+        path.resolve().relative_to(root.resolve())
+        return True
+    except ValueError:
+        return False
+
+
+def find_sweep_files(manifest: Manifest, spec: TargetSpec, root: Path | None = None) -> list[SweepFile]:
+    """Files matching a target's pattern, with the fields parsed; InputError if none or clashing.
+
+    With ``root`` (an upload folder), the pattern may not be absolute and every file it
+    matches must resolve inside root; a user's own manifests may climb out of their folder.
+    """
     pattern = spec.files.replace("\\", "/")
+    if root is not None and Path(pattern).is_absolute():
+        raise InputError(f"target {spec.name}: an uploaded campaign's files pattern must be relative",
+                         manifest.path, spec.line)
     unknown = pattern_fields(pattern) - set(FIELD_REGEX)
     if unknown:
         raise InputError(f"target {spec.name}: unknown field {{{sorted(unknown)[0]}}} in files pattern "
@@ -144,6 +159,9 @@ def find_sweep_files(manifest: Manifest, spec: TargetSpec) -> list[SweepFile]:
         m = regex.fullmatch(rel) or regex.fullmatch(Path(hit).as_posix())
         if not m:
             continue
+        if root is not None and not _inside(Path(hit), root):
+            raise InputError(f"target {spec.name}: files pattern '{spec.files}' reaches outside the uploaded "
+                             f"campaign's folder", manifest.path, spec.line)
         groups = m.groupdict()
         pol = groups.get("pol", spec.polarization).upper()
         angle = float(groups["angle"]) if "angle" in groups else spec.angle_deg
@@ -174,11 +192,15 @@ def _grid_description(freq: np.ndarray) -> str:
     return f"{len(freq)} points {freq[0] / 1e9:.6g}-{freq[-1] / 1e9:.6g} GHz"
 
 
-def load_target(manifest: Manifest, spec: TargetSpec, reader=None) -> TargetCube:
+def load_target(manifest: Manifest, spec: TargetSpec, reader=None, root: Path | None = None) -> TargetCube:
     """Read one target's files into its cube; InputError on the first problem."""
     from . import timedomain, touchstone
 
-    sweeps = find_sweep_files(manifest, spec)
+    if root is not None and spec.shape and spec.shape.get("shape") == "table" and not _inside(
+            Path(spec.shape["file"]), root):
+        raise InputError(f"target {spec.name}: table file reaches outside the uploaded campaign's folder",
+                         manifest.path, spec.line)
+    sweeps = find_sweep_files(manifest, spec, root)
     pols = sorted({s.polarization for s in sweeps}, key=lambda p: ("HH", "VV", "HV", "VH").index(p))
     angles = sorted({s.angle_deg for s in sweeps})
     repeats = sorted({s.repeat for s in sweeps})
@@ -356,8 +378,11 @@ def _check_background(manifest: Manifest, spec: TargetSpec, cube: TargetCube, bg
                            manifest.path, spec.line))
 
 
-def inspect_campaign(path, reader=None) -> tuple[Campaign | None, list[InputError], list[str]]:
-    """Every problem and warning of a campaign; the campaign itself when it could be loaded."""
+def inspect_campaign(path, reader=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
+    """Every problem and warning of a campaign; the campaign itself when it could be loaded.
+
+    ``root``: keep every data file inside this folder (uploaded campaigns).
+    """
     problems: list[InputError] = []
     warnings: list[str] = []
     try:
@@ -369,7 +394,7 @@ def inspect_campaign(path, reader=None) -> tuple[Campaign | None, list[InputErro
     cubes: dict[str, TargetCube] = {}
     for spec in manifest.targets:
         try:
-            cubes[spec.name] = load_target(manifest, spec, reader)
+            cubes[spec.name] = load_target(manifest, spec, reader, None if root is None else Path(root))
         except InputError as exc:
             problems.append(exc)
     check_campaign(manifest, cubes, problems.append, warnings.append)
@@ -378,10 +403,14 @@ def inspect_campaign(path, reader=None) -> tuple[Campaign | None, list[InputErro
     return campaign, problems, warnings
 
 
-def load_campaign(path, reader=None) -> Campaign:
-    """Load and validate a campaign; raises the first problem as InputError."""
+def load_campaign(path, reader=None, root=None) -> Campaign:
+    """Load and validate a campaign; raises the first problem as InputError.
+
+    ``root``: keep every data file inside this folder (uploaded campaigns).
+    """
     manifest, _ = parse_manifest(path, collect=False)
-    cubes = {spec.name: load_target(manifest, spec, reader) for spec in manifest.targets}
+    root = None if root is None else Path(root)
+    cubes = {spec.name: load_target(manifest, spec, reader, root) for spec in manifest.targets}
 
     def fail(err: InputError):
         raise err

@@ -64,6 +64,14 @@ def json_ready(obj):
     return obj
 
 
+def write_text(path: Path, text: str) -> None:
+    """Write a text file atomically; a full disk or a read-only folder becomes an InputError."""
+    try:
+        atomic_write(path, lambda fh: fh.write(text))
+    except OSError as exc:
+        raise InputError(f"cannot write {Path(path).name}: {exc.strerror or exc}", Path(path).parent) from None
+
+
 def prepare_out_dir(out_dir) -> Path:
     """Create the output folder (clear one-line error when it cannot be written)."""
     out = Path(out_dir)

@@ -83,7 +83,7 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
         paths = outputs.write_outputs(result, out, extra)
         if html is not None:
             paths["report"] = out / "report.html"
-            outputs.atomic_write(paths["report"], lambda fh: fh.write(html))
+            outputs.write_text(paths["report"], html)
         tick("outputs")
     finally:
         bar.close()

@@ -105,11 +105,14 @@ def _read_text(path: str) -> str:
         raise InputError("binary content (NUL byte): not a Touchstone text file",
                          path=path, line=raw.count(b"\n", 0, nul) + 1)
     try:
-        return raw.decode("utf-8-sig")
+        text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise InputError(f"binary or non-UTF-8 content (byte 0x{raw[exc.start]:02x}): "
                          "not a Touchstone text file",
                          path=path, line=raw.count(b"\n", 0, exc.start) + 1) from None
+    if "\r" in text:  # CRLF, old Mac CR-only and mixed line endings all become LF
+        text = text.replace("\r\n", "\n").replace("\r", "\n")
+    return text
 
 
 def _number(token: str, what: str, path: str, line: int) -> float:
@@ -455,13 +458,16 @@ def read_touchstone(path, n_ports: int | None = None) -> Touchstone:
         rows, row_starts = _checked_table(data, data_lineno, width, pairs, version == "1.0" and ports == 2, path)
     row_lines = np.asarray(data_lineno)[row_starts]
     freq = rows[:, 0] * _UNITS[opts["unit"]]
+    if not np.all(np.isfinite(freq)):
+        k = int(np.argmax(~np.isfinite(freq)))
+        raise InputError(f"frequency {rows[k, 0]:g} {opts['unit']} is too large", path=path, line=int(row_lines[k]))
     if freq[0] < 0:
-        raise InputError(f"negative frequency {rows[0, 0]!r}", path=path, line=int(row_lines[0]))
+        raise InputError(f"negative frequency {rows[0, 0]:g}", path=path, line=int(row_lines[0]))
     step = np.diff(freq)
     if np.any(step <= 0):
         k = int(np.argmax(step <= 0)) + 1
         kind = "duplicated" if step[k - 1] == 0 else "decreasing"
-        raise InputError(f"frequencies must increase: {rows[k, 0]!r} is {kind} after {rows[k - 1, 0]!r}",
+        raise InputError(f"frequencies must increase: {rows[k, 0]:g} is {kind} after {rows[k - 1, 0]:g}",
                          path=path, line=int(row_lines[k]))
     if kw_nfreq is not None and kw_nfreq != len(freq):
         raise InputError(f"[Number of Frequencies] is {kw_nfreq} but the file holds {len(freq)}",
