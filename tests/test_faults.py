@@ -1,0 +1,193 @@
+"""Faults: SIGKILL during `cloakrcs process`, a read-only output folder, a full disk.
+
+After a kill the SQLite store stays consistent (integrity check, every run complete, no run
+recorded before is lost), a rerun succeeds, and every output file that carries its final name
+is complete; temporaries are ``.<name>.*.part`` (analysis.outputs.atomic_write) or the empty
+``.probe.*`` write probe of prepare_out_dir.
+"""
+
+from __future__ import annotations
+
+import copy
+import datetime
+import json
+import os
+import random
+import re
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from analysis.simulate import simulate_campaign
+
+CLI = [sys.executable, "-m", "analysis.cli"]
+ROOT = Path(__file__).resolve().parents[1]
+OUTPUTS = ("rcs.csv", "reduction.csv", "summary.json", "report.html")
+TEMPORARY = re.compile(r"^(\.(rcs\.csv|reduction\.csv|summary\.json|report\.html)\..+\.part|\.probe\..+)$")
+CONFIG = {
+    "seed": 3,
+    "polarizations": ["HH", "VV"],
+    "campaign": {"name": "faults", "prototype": "fault sleeve", "date": datetime.date(2026, 11, 20)},
+    "chamber": {"range_m": 4.0},
+    "sweep": {"start_ghz": 8.0, "stop_ghz": 12.0, "points": 201},
+    "angles": {"start": -20.0, "stop": 20.0, "step": 10.0},
+    "noise": {"level_db": -90.0},
+    "gate": {"span_m": 0.6},
+    "target": [
+        {"name": "empty", "role": "background", "model": "empty", "repeats": 2},
+        {"name": "cal", "role": "reference", "model": "sphere", "radius_m": 0.1},
+        {"name": "bare", "role": "subject", "model": "sphere", "radius_m": 0.08},
+        {"name": "r1", "role": "subject", "model": "sphere", "radius_m": 0.05, "baseline": "bare",
+         "revision": "R1"},
+    ],
+}
+
+
+def process(manifest, out, *extra):
+    return subprocess.Popen([*CLI, "process", str(manifest), "--out", str(out), "--quiet", *extra], cwd=ROOT,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+@pytest.fixture(scope="module")
+def campaign(tmp_path_factory):
+    return simulate_campaign(copy.deepcopy(CONFIG), tmp_path_factory.mktemp("faults") / "campaign").manifest_path
+
+
+def assert_outputs_complete(out: Path, reference: Path) -> None:
+    for p in out.iterdir():
+        assert p.name in OUTPUTS or TEMPORARY.match(p.name), f"unexpected file {p.name}"
+    for name in ("rcs.csv", "reduction.csv"):  # fixed number format: same inputs, same bytes
+        if (out / name).exists():
+            assert (out / name).read_bytes() == (reference / name).read_bytes(), f"{name} incomplete"
+            assert len(pd.read_csv(out / name)) == len(pd.read_csv(reference / name))
+    if (out / "summary.json").exists():
+        got = json.loads((out / "summary.json").read_text())
+        assert set(got) == set(json.loads((reference / "summary.json").read_text()))
+    if (out / "report.html").exists():
+        assert (out / "report.html").read_text().rstrip().endswith("</html>")
+
+
+def store_state(url: str) -> dict[int, tuple]:
+    """run id -> (rows of results, metrics, checks) of that run; the SQLite integrity check passes."""
+    import sqlalchemy as sa
+
+    from analysis import store_schema as S
+
+    engine = sa.create_engine(url)
+    try:
+        with engine.connect() as conn:
+            assert conn.execute(sa.text("PRAGMA integrity_check")).scalar() == "ok"
+            runs = conn.execute(sa.select(S.ProcessingRun.id)).scalars().all()
+            state = {}
+            for rid in runs:
+                state[rid] = tuple(conn.execute(sa.select(sa.func.count()).select_from(t.__table__)
+                                                .where(t.run_id == rid)).scalar()
+                                   for t in (S.TargetResultRow, S.MetricRow, S.CheckRow))
+            return state
+    finally:
+        engine.dispose()
+
+
+def test_sigkill_during_process_leaves_store_and_outputs_consistent(campaign, tmp_path):
+    try:
+        from analysis import store
+    except ImportError:
+        pytest.skip("analysis.store (the results store module) is missing: nothing to record runs")
+    url = f"sqlite:///{tmp_path / 'store.db'}"
+    ref_out = tmp_path / "ref"
+    t0 = time.monotonic()
+    p = process(campaign, ref_out, "--store", url)
+    assert p.wait(timeout=300) == 0, p.stderr.read()
+    duration = time.monotonic() - t0
+    complete = store_state(url)
+    assert len(complete) == 1 and all(n > 0 for n in next(iter(complete.values()))[:2])
+    shape = next(iter(complete.values()))
+    assert [r["run_id"] if "run_id" in r else r.get("id") for r in store.list_runs(url)]  # the store's own view
+
+    rng = random.Random(11)
+    out = tmp_path / "out"
+    killed = 0
+    for attempt in range(4):
+        before = store_state(url)
+        p = process(campaign, out, "--store", url)
+        time.sleep(rng.uniform(0.3, 1.05) * duration)
+        if p.poll() is None:
+            p.send_signal(signal.SIGKILL)
+            killed += 1
+        p.wait(timeout=60)
+        after = store_state(url)
+        assert set(before) <= set(after), "a run stored before was lost"
+        assert len(after) - len(before) in (0, 1)
+        assert all(v == shape for v in after.values()), f"an incomplete run in the store: {after}"
+        if out.exists():
+            assert_outputs_complete(out, ref_out)
+    assert killed >= 2, "too few kills landed while the command ran"
+    before = store_state(url)
+    p = process(campaign, out, "--store", url)
+    assert p.wait(timeout=300) == 0, p.stderr.read()
+    after = store_state(url)
+    assert len(after) == len(before) + 1 and set(before) <= set(after)
+    assert all((out / n).exists() for n in OUTPUTS[:3])
+    assert_outputs_complete(out, ref_out)
+
+
+def _mount_tmpfs(target: Path, options: str) -> None:
+    target.mkdir(parents=True, exist_ok=True)
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(target)], capture_output=True, text=True)
+    if r.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here ({r.stderr.strip() or 'mount failed'}): needs root or CAP_SYS_ADMIN")
+
+
+def _assert_one_line_refusal(p, out: Path) -> None:
+    code = p.wait(timeout=300)
+    err = p.stderr.read()
+    assert code == 2, (code, err)
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("cloakrcs: ") and "Traceback" not in err, err
+    assert str(out) in lines[0], lines[0]
+
+
+def test_read_only_output_folder(campaign, tmp_path):
+    out = tmp_path / "ro"
+    if os.geteuid() == 0:  # root ignores file modes: a read-only tmpfs is read-only for root too
+        _mount_tmpfs(out, "ro,size=64k")
+    else:
+        out.mkdir()
+        out.chmod(0o555)
+    try:
+        p = process(campaign, out, "--no-store")
+        _assert_one_line_refusal(p, out)
+        assert list(out.iterdir()) == []
+    finally:
+        if os.geteuid() == 0:
+            subprocess.run(["umount", str(out)], check=False)
+        else:
+            out.chmod(0o755)
+
+
+@pytest.mark.parametrize("room", ["none", "first_files"])
+def test_full_disk(campaign, tmp_path, room):
+    """A tmpfs too small for the outputs: exit 2, one line, no partial file under a final name."""
+    ref = tmp_path / "ref"
+    p = process(campaign, ref, "--no-store")
+    assert p.wait(timeout=300) == 0, p.stderr.read()
+    first = sum((ref / n).stat().st_size for n in OUTPUTS[:3])
+    size_kb = 8 if room == "none" else (first // 4096 + 2) * 4  # room for rcs/reduction/summary, not the report
+    out = tmp_path / "full"
+    _mount_tmpfs(out, f"size={size_kb}k")
+    try:
+        if room == "first_files" and (ref / "report.html").stat().st_size < 8192:
+            pytest.skip("report.html too small to overflow the tmpfs after the other outputs")
+        filler = out / "filler"
+        p = process(campaign, out, "--no-store")
+        _assert_one_line_refusal(p, out)
+        assert not filler.exists()
+        assert_outputs_complete(out, ref)
+        assert not [q for q in out.iterdir() if q.name.endswith(".part")], "a temporary file was left"
+    finally:
+        subprocess.run(["umount", str(out)], check=False)
