@@ -38,6 +38,8 @@ def run(args) -> int:
         print(f"the sample campaign is already stored (run {run_id}) in {url}", file=sys.stderr)
     if args.no_serve:
         return 0
-    from .serve import serve
+    from argparse import Namespace
 
-    return serve(url, args.host, args.port)
+    from .serve import run as serve
+
+    return serve(Namespace(store=url, host=args.host, port=args.port))
