@@ -366,8 +366,10 @@ class Views:
             ["worst angle", f"{_fmt(m['worst_angle_deg'], 'g')}° ({_fmt(m['worst_angle_reduction_db'])} dB)"],
             ["sector", "all angles" if not sector else f"{sector[0]:g}° to {sector[1]:g}°"],
             ["floor-limited points", f"{m['floor_limited_points']} of {m['points']}"],
-            ["mounting offset (subject − baseline)", f"{_fmt(m['mounting_offset_deg'], '.2f')}°"
-                                                     + (" (aligned)" if m.get("angles_aligned") else "")],
+            ["mounting offset (subject − baseline)",
+             f"{_fmt(m['mounting_offset_deg'], '.2f')}°"
+             + ("" if m.get("mounting_offset_reliable", True) else " (not reliable: the patterns share too little)")
+             + (" (aligned)" if m.get("angles_aligned") else "")],
             ["check-target max error", _fmt(m["check_error_db"], ".2f", " dB")],
         ]
         return curve, fmap, _table(facts, [f"{subject} against {m['baseline']}, {pol}", ""], "tbl facts")
