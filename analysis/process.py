@@ -7,7 +7,7 @@ writers, the store, the report and the dashboard read. Nothing here does I/O.
 
 from __future__ import annotations
 
-import math
+import os
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -19,7 +19,7 @@ from . import __version__, calibrate, metrics, references, timedomain
 from .campaign import Campaign, TargetCube, wrap_angle_deg
 from .constants import C0
 from .errors import InputError
-from .manifest import CO_POL, TargetSpec
+from .manifest import TargetSpec
 
 ANGLE_INDEPENDENT = ("sphere",)
 CHECK_DYNAMIC_DB = 20.0  # check-target error is scored where theory is within this of its peak
@@ -311,8 +311,6 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
 
 def _rel(path: str, folder) -> str:
-    import os
-
     return os.path.relpath(path, folder).replace(os.sep, "/")
 
 
@@ -466,6 +464,3 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
             })
     return rows, reductions
 
-
-def isfinite_or_none(x):
-    return None if x is None or (isinstance(x, float) and not math.isfinite(x)) else x

@@ -71,19 +71,12 @@ import numpy as np
 from analysis import cloak_model
 from analysis.constants import C0
 from analysis.errors import InputError
+from analysis.manifest import SHAPE_KEYS
 
 ROLES = ("background", "reference", "subject")
 SHAPE_MODELS = ("sphere", "plate", "disk", "cylinder", "dihedral", "trihedral")
 CYLINDER_MODELS = ("bare_cylinder", "coated_cylinder")
 MODELS = ("empty",) + SHAPE_MODELS + CYLINDER_MODELS
-SHAPE_KEYS = {
-    "sphere": ("radius_m",),
-    "plate": ("width_m", "height_m"),
-    "disk": ("radius_m",),
-    "cylinder": ("radius_m", "length_m", "orientation"),
-    "dihedral": ("fold_m", "face_m", "roll_deg"),
-    "trihedral": ("edge_m", "kind"),
-}
 POLARIZATIONS = ("HH", "VV", "HV", "VH")
 SECTIONS = {
     "campaign": {"name": "synthetic", "prototype": "", "date": None},

@@ -52,7 +52,7 @@ def _serialise(out):
 
 
 def time_calls(views: Views, run_id: int, repeat: int) -> list[tuple[str, float, float, int]]:
-    r = views.source.result(run_id)
+    views.source.result(run_id)  # warm the cache
     tg = views.gate_targets(run_id)
     gc = views.gate_target_controls(run_id, tg[1])
     rc = views.rcs_controls(run_id)

@@ -12,7 +12,7 @@ from collections import OrderedDict
 from dataclasses import replace
 
 import numpy as np
-from dash import Input, Output, State, ctx, html, no_update
+from dash import Input, Output, State, html, no_update
 from dash.exceptions import PreventUpdate
 
 from analysis import figures as F

@@ -23,7 +23,7 @@ from analysis.campaign import inspect_campaign, load_campaign
 from analysis.errors import InputError
 from analysis.manifest import parse_manifest
 from analysis.touchstone import read_touchstone, write_touchstone
-from conftest import TINY_MANIFEST, point_echo, write_s1p
+from conftest import point_echo, write_s1p
 
 CORPUS = Path(__file__).parent / "corpus"
 

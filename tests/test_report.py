@@ -12,8 +12,6 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-import shutil
-from pathlib import Path
 
 import numpy as np
 import pytest
