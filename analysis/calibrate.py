@@ -15,7 +15,6 @@ A_ref * D_t / D_ref * (R_t / R_ref)^2 * exp(+j 2 k (R_t - R_ref)).
 from __future__ import annotations
 
 import numpy as np
-from scipy.ndimage import uniform_filter1d
 
 from . import timedomain
 from .constants import C0
@@ -128,6 +127,22 @@ def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_be
     return per_bin * w.sum() ** 2 / np.sum(w ** 2)
 
 
+def moving_average(x: np.ndarray, width: int) -> np.ndarray:
+    """Centred moving average over the last axis, edges padded with the end values.
+
+    The same as scipy.ndimage.uniform_filter1d(x, width, mode="nearest") (a test checks it).
+    """
+    if width <= 1:
+        return x
+    left = width // 2
+    right = width - 1 - left
+    padded = np.concatenate([np.repeat(x[..., :1], left, axis=-1), x, np.repeat(x[..., -1:], right, axis=-1)],
+                            axis=-1)
+    c = np.cumsum(padded, axis=-1)
+    c = np.concatenate([np.zeros(x.shape[:-1] + (1,)), c], axis=-1)
+    return (c[..., width:] - c[..., :-width]) / width
+
+
 def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tuple[np.ndarray, str]:
     """Per-sweep gated noise power (pol, nf) seen in one sweep, and how it was estimated.
 
@@ -152,5 +167,5 @@ def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tupl
         how = "gated noise estimated from the background's range profile (no repeats: rough)"
     cell_hz = C0 / (2 * span_m)
     width = max(1, int(round(FLOOR_SMOOTHING_CELLS * cell_hz / (f[1] - f[0]))))
-    power = uniform_filter1d(power, size=min(width, power.shape[-1]), axis=-1, mode="nearest")
+    power = moving_average(power, min(width, power.shape[-1]))
     return power, how

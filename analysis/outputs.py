@@ -18,16 +18,47 @@ import numpy as np
 from .errors import InputError
 from .process import ProcessingResult
 
-FLOAT_FORMAT = "%.10g"
+# decimals kept per CSV column (well below any measurement's resolution); others as they are
+CSV_DECIMALS = {"rcs_dbsm": 4, "phase_deg": 3, "floor_dbsm": 3, "reduction_db": 4, "angle_deg": 6}
 
 
-def atomic_write(path: Path, write) -> None:
+def write_csv(path: Path, table) -> None:
+    """A pandas DataFrame as CSV with Arrow's C++ writer (an order of magnitude faster than
+    DataFrame.to_csv here), floats rounded per CSV_DECIMALS and written in their shortest form,
+    booleans as true/false, strings quoted only when one of them holds a comma, quote or line
+    break. Deterministic, atomic."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    columns = {}
+    plain = True  # no string needs quoting: write none (names with , " or newlines get quoted)
+    for name in table.columns:
+        values = table[name].to_numpy()
+        if name in CSV_DECIMALS and values.dtype.kind == "f":
+            values = np.round(values, CSV_DECIMALS[name]) + 0.0  # + 0.0 turns -0.0 into 0.0
+        if values.dtype.kind == "O":
+            text = pa.array(values.astype(str)).dictionary_encode()
+            plain &= not any(ch in v for v in text.dictionary.to_pylist() for ch in ',"\n\r')
+            columns[name] = text
+        else:
+            columns[name] = pa.array(values)
+    arrow = pa.table(columns)
+    options = pacsv.WriteOptions(quoting_style="none" if plain else "needed", include_header=False)
+
+    def write(fh):
+        fh.write((",".join(table.columns) + "\n").encode())
+        pacsv.write_csv(arrow, fh, write_options=options)
+
+    atomic_write(path, write, binary=True)
+
+
+def atomic_write(path: Path, write, binary: bool = False) -> None:
     """Call write(file_object) on a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
         os.chmod(tmp, 0o666 & ~_umask())
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+        with (os.fdopen(fd, "wb") if binary else os.fdopen(fd, "w", encoding="utf-8", newline="")) as fh:
             write(fh)
             fh.flush()
             os.fsync(fh.fileno())
@@ -89,11 +120,8 @@ def write_outputs(result: ProcessingResult, out_dir, extra_summary: dict | None 
     out = prepare_out_dir(out_dir)
     paths = {"rcs": out / "rcs.csv", "reduction": out / "reduction.csv", "summary": out / "summary.json"}
     try:
-        rcs = result.rcs_table()
-        atomic_write(paths["rcs"], lambda fh: rcs.to_csv(fh, index=False, float_format=FLOAT_FORMAT, lineterminator="\n"))
-        red = result.reduction_table()
-        atomic_write(paths["reduction"], lambda fh: red.to_csv(fh, index=False, float_format=FLOAT_FORMAT,
-                                                              lineterminator="\n"))
+        write_csv(paths["rcs"], result.rcs_table())
+        write_csv(paths["reduction"], result.reduction_table())
         summary = result.summary()
         if extra_summary:
             summary.update(extra_summary)

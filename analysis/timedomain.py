@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.fft
-import scipy.signal.windows as sw
 
 from analysis.constants import C0
 from analysis.errors import InputError
@@ -73,17 +72,20 @@ def unambiguous_range_m(frequency_hz) -> float:
 
 
 def frequency_window(name, n, kaiser_beta=6.0) -> np.ndarray:
-    """Symmetric frequency-domain window of length n: "kaiser" (beta), "hann" or "rect"."""
+    """Symmetric frequency-domain window of length n: "kaiser" (beta), "hann" or "rect".
+
+    numpy's windows (equal to scipy.signal.windows' symmetric ones, which the tests check);
+    scipy.signal itself is not imported, as its import costs a second at start-up."""
     n = int(n)
     if n < 1:
         raise InputError(f"window length must be at least 1, got {n}")
     key = str(name).lower()
     if key == "kaiser":
-        return sw.kaiser(n, float(kaiser_beta), sym=True)
+        return np.kaiser(n, float(kaiser_beta))
     if key == "hann":
-        return sw.hann(n, sym=True)
+        return np.hanning(n) if n > 1 else np.ones(1)
     if key == "rect":
-        return sw.boxcar(n, sym=True)
+        return np.ones(n)
     raise InputError(f"unknown window {name!r}: choose one of {', '.join(WINDOWS)}")
 
 

@@ -279,3 +279,15 @@ def test_mounting_offset_found_and_aligned(tmp_path):
         # worst-angle reduction of a remounted identical object: lobes misaligned without, ~0 dB with
         assert abs(m["worst_angle_reduction_db"]) < abs(m_plain["worst_angle_reduction_db"])
         assert abs(m["band_reduction_db"]) < 0.2
+
+
+def test_moving_average_equals_scipy():
+    # scipy.ndimage.uniform_filter1d with mode="nearest" is the reference
+    from scipy.ndimage import uniform_filter1d
+
+    from analysis.calibrate import moving_average
+
+    x = np.random.default_rng(0).random((3, 57))
+    for width in (1, 2, 5, 8, 57):
+        np.testing.assert_allclose(moving_average(x, width), uniform_filter1d(x, width, axis=-1, mode="nearest"),
+                                   rtol=1e-12)
