@@ -81,12 +81,11 @@ def process_one(manifest, out_dir, settings=None, store_url: str | None = None, 
     """
     from .campaign import load_campaign
     from .pipeline import run_process
-    from .touchstone import read_many
 
     manifest, out_dir = str(manifest), str(out_dir)
     name = campaign_name(Path(manifest))
     try:
-        campaign = load_campaign(manifest, reader=lambda paths: read_many(paths, workers=1))
+        campaign = load_campaign(manifest, workers=1)
         outcome = run_process(manifest, out_dir, settings, store_url=store_url, report=report, quiet=True,
                               campaign=campaign)
     except InputError as err:

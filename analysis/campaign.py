@@ -192,10 +192,8 @@ def _grid_description(freq: np.ndarray) -> str:
     return f"{len(freq)} points {freq[0] / 1e9:.6g}-{freq[-1] / 1e9:.6g} GHz"
 
 
-def load_target(manifest: Manifest, spec: TargetSpec, reader=None, root: Path | None = None) -> TargetCube:
-    """Read one target's files into its cube; InputError on the first problem."""
-    from . import timedomain, touchstone
-
+def _plan_target(manifest: Manifest, spec: TargetSpec, root: Path | None):
+    """(polarizations, angles, repeats, sweeps in cube order) of a target; InputError if the grid has holes."""
     if root is not None and spec.shape and spec.shape.get("shape") == "table" and not _inside(
             Path(spec.shape["file"]), root):
         raise InputError(f"target {spec.name}: table file reaches outside the uploaded campaign's folder",
@@ -210,35 +208,52 @@ def load_target(manifest: Manifest, spec: TargetSpec, reader=None, root: Path | 
         p, a, r = missing[0]
         raise InputError(f"target {spec.name}: {len(missing)} sweep(s) missing from the polarization x angle x "
                          f"repeat grid, first {p} at {a:g} deg repeat {r}", manifest.path, spec.line)
-    ordered = [index[(p, a, r)] for p in pols for a in angles for r in repeats]
+    return pols, angles, repeats, [index[(p, a, r)] for p in pols for a in angles for r in repeats]
+
+
+def _file_parameter(spec: TargetSpec, polarization: str) -> str | None:
+    """The S-parameter to read from one file (None: the default for its port count)."""
+    if isinstance(spec.parameter, dict):
+        return spec.parameter.get(polarization) or None
+    return spec.parameter
+
+
+def load_target(manifest: Manifest, spec: TargetSpec, workers: int | None = None, root: Path | None = None,
+                plan=None, echoes=None) -> TargetCube:
+    """Read one target's files into its cube; InputError on the first problem.
+
+    ``plan`` and ``echoes`` let :func:`load_campaign` read every target's files in one batch.
+    """
+    from . import timedomain, touchstone
+
+    pols, angles, repeats, ordered = plan or _plan_target(manifest, spec, root)
     paths = [s.path for s in ordered]
-    read = reader or touchstone.read_many
-    networks = read(paths)
-    n_ports = networks[0].n_ports
+    if echoes is None:
+        echoes = touchstone.read_echoes(paths, [_file_parameter(spec, s.polarization) for s in ordered], workers)
+    n_ports = echoes[0].n_ports
     params: dict[str, str] = {}
     for p in pols:
+        if n_ports > 2 and spec.parameter is None:
+            raise InputError(f"target {spec.name}: {n_ports}-port files need a parameter table such as "
+                             f"{{ VV = \"S21\", HH = \"S43\" }}", manifest.path, spec.line)
         name = spec.parameter_for(p, n_ports)
         if not name:
             raise InputError(f"target {spec.name}: parameter table gives no S-parameter for {p}", manifest.path, spec.line)
-        if n_ports == 4 and not isinstance(spec.parameter, dict) and spec.parameter is None:
-            raise InputError(f"target {spec.name}: 4-port files need a parameter table such as "
-                             f"{{ VV = \"S21\", HH = \"S43\" }}", manifest.path, spec.line)
         params[p] = name
-    freq = networks[0].frequency_hz
+    freq = echoes[0].frequency_hz
     timedomain.uniform_step_hz(freq, path=paths[0])
     data = np.empty((len(pols), len(angles), len(repeats), len(freq)), dtype=np.complex128)
     flat = data.reshape(-1, len(freq))
-    for k, (sf, net) in enumerate(zip(ordered, networks)):
-        if net.n_ports != n_ports:
-            raise InputError(f"has {net.n_ports} ports, other files of target {spec.name} have {n_ports}", sf.path)
-        if len(net.frequency_hz) != len(freq) or not np.allclose(net.frequency_hz, freq, rtol=1e-9, atol=0):
-            raise InputError(f"frequency grid ({_grid_description(net.frequency_hz)}) differs from "
+    for k, (sf, echo) in enumerate(zip(ordered, echoes)):
+        if echo.n_ports != n_ports:
+            raise InputError(f"has {echo.n_ports} ports, other files of target {spec.name} have {n_ports}", sf.path)
+        if len(echo.frequency_hz) != len(freq) or not np.allclose(echo.frequency_hz, freq, rtol=1e-9, atol=0):
+            raise InputError(f"frequency grid ({_grid_description(echo.frequency_hz)}) differs from "
                              f"{paths[0].name} ({_grid_description(freq)})", sf.path)
-        i, j = touchstone.parameter_index(params[sf.polarization])
-        if i >= n_ports or j >= n_ports:
+        if echo.values is None:
             raise InputError(f"target {spec.name}: parameter {params[sf.polarization]} needs more than "
                              f"{n_ports} ports", manifest.path, spec.line)
-        flat[k] = net.s[:, i, j]
+        flat[k] = echo.values
     cube = xr.DataArray(
         data, dims=("polarization", "angle", "repeat", "frequency"),
         coords={"polarization": pols, "angle": np.array(angles, dtype=float),
@@ -246,7 +261,7 @@ def load_target(manifest: Manifest, spec: TargetSpec, reader=None, root: Path | 
         name=spec.name, attrs={"units": "VNA ratio", "target": spec.name, "role": spec.role},
     )
     files = np.array([str(p) for p in paths], dtype=object).reshape(len(pols), len(angles), len(repeats))
-    hashes = {str(p): touchstone.file_sha256(p) for p in paths}
+    hashes = {str(p): e.sha256 for p, e in zip(paths, echoes)}
     return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params)
 
 
@@ -378,7 +393,7 @@ def _check_background(manifest: Manifest, spec: TargetSpec, cube: TargetCube, bg
                            manifest.path, spec.line))
 
 
-def inspect_campaign(path, reader=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
+def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
     """Every problem and warning of a campaign; the campaign itself when it could be loaded.
 
     ``root``: keep every data file inside this folder (uploaded campaigns).
@@ -394,7 +409,7 @@ def inspect_campaign(path, reader=None, root=None) -> tuple[Campaign | None, lis
     cubes: dict[str, TargetCube] = {}
     for spec in manifest.targets:
         try:
-            cubes[spec.name] = load_target(manifest, spec, reader, None if root is None else Path(root))
+            cubes[spec.name] = load_target(manifest, spec, workers, None if root is None else Path(root))
         except InputError as exc:
             problems.append(exc)
     check_campaign(manifest, cubes, problems.append, warnings.append)
@@ -403,14 +418,28 @@ def inspect_campaign(path, reader=None, root=None) -> tuple[Campaign | None, lis
     return campaign, problems, warnings
 
 
-def load_campaign(path, reader=None, root=None) -> Campaign:
+def load_campaign(path, workers=None, root=None) -> Campaign:
     """Load and validate a campaign; raises the first problem as InputError.
 
-    ``root``: keep every data file inside this folder (uploaded campaigns).
+    Every target's files are read in one batch (one process pool; ``workers=1`` reads
+    serially). ``root``: keep every data file inside this folder (uploaded campaigns).
     """
+    from . import touchstone
+
     manifest, _ = parse_manifest(path, collect=False)
     root = None if root is None else Path(root)
-    cubes = {spec.name: load_target(manifest, spec, reader, root) for spec in manifest.targets}
+    plans = [_plan_target(manifest, spec, root) for spec in manifest.targets]
+    paths, params, owner = [], [], []
+    for k, (spec, plan) in enumerate(zip(manifest.targets, plans)):
+        for sweep in plan[3]:
+            paths.append(sweep.path)
+            params.append(_file_parameter(spec, sweep.polarization))
+            owner.append(k)
+    echoes = touchstone.read_echoes(paths, params, workers)
+    owner = np.asarray(owner)
+    cubes = {spec.name: load_target(manifest, spec, workers, root, plan,
+                                    [echoes[i] for i in np.flatnonzero(owner == k)])
+             for k, (spec, plan) in enumerate(zip(manifest.targets, plans))}
 
     def fail(err: InputError):
         raise err

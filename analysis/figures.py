@@ -11,6 +11,8 @@ angles in degrees.
 
 from __future__ import annotations
 
+import functools
+
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -66,9 +68,17 @@ def _ghz(f_hz) -> np.ndarray:
     return np.asarray(f_hz, dtype=float) / 1e9
 
 
+@functools.lru_cache(maxsize=1)
+def _template():
+    """The plotly template, resolved once (naming it costs its lookup in every figure)."""
+    import plotly.io as pio
+
+    return pio.templates["simple_white"]
+
+
 def _base_layout(fig: go.Figure, title: str, height: int = 420) -> go.Figure:
     fig.update_layout(
-        template="simple_white",
+        template=_template(),
         title={"text": title, "x": 0.0, "xref": "paper", "xanchor": "left", "font": {"size": 15}},
         font={"family": FONT, "size": 12, "color": "#1d2733"}, height=height,
         margin={"l": 64, "r": 24, "t": 44, "b": 96},

@@ -503,12 +503,30 @@ def read_touchstone(path, n_ports: int | None = None) -> Touchstone:
                       source_parameter=param.upper(), comments=tuple(comments))
 
 
-def _read_one(path, n_ports):
-    """Worker for read_many: errors come back as data so their path and line survive."""
+def _guarded(func, *args):
+    """Pool worker wrapper: an InputError comes back as data so its path and line survive."""
     try:
-        return read_touchstone(path, n_ports)
+        return func(*args)
     except InputError as err:
         return ("InputError", err.message, err.path, err.line)
+
+
+def _map_files(func, arg_lists, workers: int | None):
+    """func(*args) for each args tuple, in order; a process pool for many files on several cores."""
+    cores = os.cpu_count() or 1
+    workers = cores if workers is None else int(workers)
+    if workers < 1:
+        raise InputError(f"workers must be at least 1, got {workers}")
+    if workers == 1 or cores == 1 or len(arg_lists) < _POOL_MIN_FILES:
+        return [func(*args) for args in arg_lists]
+    workers = min(workers, len(arg_lists))
+    chunk = max(1, len(arg_lists) // (workers * 4))
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        results = list(pool.map(_guarded, repeat(func), *zip(*arg_lists), chunksize=chunk))
+    for res in results:
+        if isinstance(res, tuple) and res and res[0] == "InputError":
+            raise InputError(res[1], path=res[2], line=res[3])
+    return results
 
 
 def read_many(paths, n_ports: int | None = None, workers: int | None = None) -> list[Touchstone]:
@@ -516,21 +534,39 @@ def read_many(paths, n_ports: int | None = None, workers: int | None = None) -> 
 
     ``workers=1`` forces a serial read. The first failing file (in order) raises its InputError.
     """
-    paths = [os.fspath(p) for p in paths]
-    cores = os.cpu_count() or 1
-    workers = cores if workers is None else int(workers)
-    if workers < 1:
-        raise InputError(f"workers must be at least 1, got {workers}")
-    if workers == 1 or cores == 1 or len(paths) < _POOL_MIN_FILES:
-        return [read_touchstone(p, n_ports) for p in paths]
-    workers = min(workers, len(paths))
-    chunk = max(1, len(paths) // (workers * 4))
-    with ProcessPoolExecutor(max_workers=workers) as pool:
-        results = list(pool.map(_read_one, paths, repeat(n_ports), chunksize=chunk))
-    for res in results:
-        if isinstance(res, tuple):
-            raise InputError(res[1], path=res[2], line=res[3])
-    return results
+    return _map_files(read_touchstone, [(os.fspath(p), n_ports) for p in paths], workers)
+
+
+@dataclass(frozen=True, eq=False)
+class Echo:
+    """The one S-parameter of a file that carries a target's echo, with the file's SHA-256."""
+
+    frequency_hz: np.ndarray
+    values: np.ndarray | None  # complex (nf,); None when the file has no such parameter
+    n_ports: int
+    parameter: str | None
+    sha256: str
+
+
+def read_echo(path, parameter: str | None = None) -> Echo:
+    """Read a file and keep only ``parameter`` (default S11 for 1-port, S21 for 2-port files)."""
+    ts = read_touchstone(path)
+    name = parameter or {1: "S11", 2: "S21"}.get(ts.n_ports)
+    values = None
+    if name:
+        i, j = parameter_index(name)
+        if i < ts.n_ports and j < ts.n_ports:
+            values = np.ascontiguousarray(ts.s[:, i, j])
+    return Echo(ts.frequency_hz, values, ts.n_ports, name, file_sha256(path))
+
+
+def read_echoes(paths, parameters, workers: int | None = None) -> list[Echo]:
+    """read_echo over many files (one parameter per file, or None), in order, on a process pool.
+
+    Workers send back one complex vector per file instead of the whole matrix, and hash the
+    file they have just read.
+    """
+    return _map_files(read_echo, [(os.fspath(p), q) for p, q in zip(paths, parameters)], workers)
 
 
 def file_sha256(path) -> str:

@@ -409,3 +409,10 @@ def test_parallel_writers_on_sqlite_wait_instead_of_failing(tmp_path, work):
     n = counts(url)
     assert n["campaign"] == 2 and n["processing_run"] == 18 and n["prototype"] == 1
     store.close_store(url)
+
+
+def test_schema_revision_constant_is_alembic_head():
+    # alembic's own view of the migration scripts is the reference
+    from alembic.script import ScriptDirectory
+
+    assert ScriptDirectory.from_config(store._alembic_config()).get_current_head() == store.SCHEMA_REVISION
