@@ -96,22 +96,6 @@ def geometric_mean_factor(k_hh, k_vv) -> np.ndarray:
     return mag * np.exp(1j * phase)
 
 
-def noise_gain(frequency_hz, center_m, span_m, **gate) -> np.ndarray:
-    """Gated, normalised output power (nf,) per unit input noise variance at each frequency.
-
-    The gate is linear: applying it to the identity gives its matrix H, and white noise of
-    variance s^2 per point leaves s^2 sum_n |H(f, n)|^2 at frequency f. Exact, no sampling.
-    """
-    n = len(frequency_hz)
-    total = np.zeros(n)
-    for start in range(0, n, 256):  # blocks of unit inputs keep the memory small
-        unit = np.zeros((min(256, n - start), n), dtype=complex)
-        unit[np.arange(unit.shape[0]), start + np.arange(unit.shape[0])] = 1.0
-        h = timedomain.time_gate(frequency_hz, unit, center_m, span_m, **gate)
-        total += np.sum(np.abs(h) ** 2, axis=0)
-    return total
-
-
 def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_beta=6.0) -> np.ndarray:
     """Per-point noise variance (pol,) of sweeps (pol, ..., nf) without repeats: a rough estimate.
 
@@ -149,7 +133,7 @@ def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tupl
     With repeated background sweeps (pol, angle, repeat, nf): the gated deviations from their
     mean, sum |g(B_r) - g(B_mean)|^2 / (N - 1), averaged over angles (the chamber floor does not
     depend on the turntable angle). Without repeats: the noise variance from the profile
-    (:func:`noise_variance_from_profile`) times :func:`noise_gain`. Smoothed over a frequency
+    (:func:`noise_variance_from_profile`) times :func:`timedomain.gate_noise_gain`. Smoothed over a frequency
     window FLOOR_SMOOTHING_CELLS inverse gate durations wide.
     """
     f = np.asarray(frequency_hz)
@@ -163,7 +147,7 @@ def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tupl
     else:
         var = noise_variance_from_profile(f, bg_sweeps[:, :, 0, :], gate.get("window", "kaiser"),
                                           gate.get("kaiser_beta", 6.0))
-        power = var[:, None] * noise_gain(f, center_m, span_m, **gate)[None, :]
+        power = var[:, None] * timedomain.gate_noise_gain(f, center_m, span_m, **gate)[None, :]
         how = "gated noise estimated from the background's range profile (no repeats: rough)"
     cell_hz = C0 / (2 * span_m)
     width = max(1, int(round(FLOOR_SMOOTHING_CELLS * cell_hz / (f[1] - f[0]))))

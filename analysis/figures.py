@@ -12,7 +12,6 @@ angles in degrees.
 from __future__ import annotations
 
 import functools
-
 from typing import Iterable, Sequence
 
 import numpy as np

@@ -211,15 +211,25 @@ def close_store(url: str | None = None) -> None:
 
 # ---------------------------------------------------------------- arrays
 
-def pack_array(a) -> bytes:
-    """np.save bytes (no pickle), zlib-compressed; dtype and shape kept exactly."""
+_NPY_MAGIC = b"\x93NUMPY"
+
+
+def pack_array(a, compress: bool = False) -> bytes:
+    """np.save bytes (no pickle), dtype and shape kept exactly; zlib-compressed on request.
+
+    Sweeps are stored as binary complex128 (16 bytes a point, against about 40 in Touchstone
+    text) without compression by default: measured noise barely compresses (about 5 %) and
+    zlib would cost most of a store write.
+    """
     buf = io.BytesIO()
     np.save(buf, np.ascontiguousarray(a), allow_pickle=False)
-    return zlib.compress(buf.getvalue(), 1)  # measured noise barely compresses: take the fastest level
+    return zlib.compress(buf.getvalue(), 1) if compress else buf.getvalue()
 
 
 def unpack_array(blob: bytes) -> np.ndarray:
-    return np.load(io.BytesIO(zlib.decompress(blob)), allow_pickle=False)
+    """Inverse of pack_array (compressed or not)."""
+    raw = bytes(blob)
+    return np.load(io.BytesIO(raw if raw.startswith(_NPY_MAGIC) else zlib.decompress(raw)), allow_pickle=False)
 
 
 def _num(x):

@@ -202,6 +202,25 @@ def time_gate(frequency_hz, s, center_m, span_m, window="kaiser", kaiser_beta=6.
     return gated / distortion if normalise else gated
 
 
+def gate_noise_gain(frequency_hz, center_m, span_m, window="kaiser", kaiser_beta=6.0, pad_factor=4,
+                    edge_fraction=DEFAULT_EDGE_FRACTION, normalise=True) -> np.ndarray:
+    """Output power (nf,) of ``time_gate`` per unit variance of white input noise, per frequency.
+
+    The gate is a circular convolution in frequency, Y[k] = sum_n w_n x_n G[k - n] with G the
+    FFT of the gate over m points divided by m, so white noise leaves
+    sum_n w_n^2 |G[k - n]|^2 (divided by |distortion|^2 when normalised): one more circular
+    convolution, done by FFT. Exact; equal to applying the gate to every unit sweep.
+    """
+    _, w, gate, n, distortion = _gate_and_distortion(frequency_hz, np.zeros(np.size(frequency_hz)), center_m,
+                                                     span_m, window, kaiser_beta, pad_factor, edge_fraction)
+    m = gate.size
+    g2 = np.abs(scipy.fft.fft(gate) / m) ** 2
+    p = np.zeros(m)
+    p[:n] = w ** 2
+    gain = scipy.fft.ifft(scipy.fft.fft(p) * scipy.fft.fft(g2)).real[:n]
+    return gain / np.abs(distortion) ** 2 if normalise else gain
+
+
 def valid_band_mask(frequency_hz, span_m, trim_hz=None) -> np.ndarray:
     """Boolean mask (nf,) of the frequencies kept after gating.
 

@@ -240,7 +240,7 @@ def test_cross_pol_calibrated_by_rolled_dihedral(tmp_path):
 def test_floor_without_repeats_matches_noise_level(tmp_path):
     # white noise of known rms through the same gate: the profile-median estimate (exponential
     # distribution of |Gaussian|^2: median = ln 2 x mean, a standard result) should land within ~1.5 dB
-    from analysis import calibrate
+    from analysis import calibrate, timedomain
 
     rng = np.random.default_rng(3)
     f = np.linspace(8e9, 12e9, 401)
@@ -248,7 +248,7 @@ def test_floor_without_repeats_matches_noise_level(tmp_path):
     sweeps = sigma_n / np.sqrt(2) * (rng.standard_normal((1, 40, 1, 401)) + 1j * rng.standard_normal((1, 40, 1, 401)))
     power, how = calibrate.gated_noise_power(f, sweeps, 4.0, 0.6)
     assert "no repeats" in how
-    exact = sigma_n ** 2 * calibrate.noise_gain(f, 4.0, 0.6)
+    exact = sigma_n ** 2 * timedomain.gate_noise_gain(f, 4.0, 0.6)
     assert np.median(10 * np.log10(power[0] / exact)) == pytest.approx(0.0, abs=1.5)
     # with repeats: the gated deviations give the same power (two estimates must agree)
     rep = sigma_n / np.sqrt(2) * (rng.standard_normal((1, 40, 4, 401)) + 1j * rng.standard_normal((1, 40, 4, 401)))

@@ -13,7 +13,7 @@ import scipy.signal.windows as sw
 
 from analysis.errors import InputError
 from analysis.timedomain import (
-    find_echo_range, frequency_window, gate_distortion, gate_far_edge_ok, gate_shape, range_profile,
+    find_echo_range, frequency_window, gate_distortion, gate_far_edge_ok, gate_noise_gain, gate_shape, range_profile,
     resolution_m, time_gate, unambiguous_range_m, uniform_step_hz, valid_band_mask,
 )
 
@@ -302,3 +302,13 @@ def test_bad_shapes_and_parameters_refused():
         time_gate(F, echo(4.0), 4.0, -1.0)
     with pytest.raises(InputError, match="edge_fraction"):
         time_gate(F, echo(4.0), 4.0, 1.0, edge_fraction=1.5)
+
+
+def test_gate_noise_gain_equals_gating_every_unit_sweep():
+    # the gate is linear: applying it to the identity gives its matrix H; white noise leaves
+    # sum_n |H(f, n)|^2 (linear-systems identity), which the FFT shortcut must reproduce
+    f = np.linspace(8e9, 12e9, 301)
+    for window, pad in (("kaiser", 4), ("hann", 1), ("rect", 2)):
+        h = time_gate(f, np.eye(f.size, dtype=complex), 4.0, 0.6, window=window, pad_factor=pad)
+        brute = np.sum(np.abs(h) ** 2, axis=0)
+        np.testing.assert_allclose(gate_noise_gain(f, 4.0, 0.6, window=window, pad_factor=pad), brute, rtol=1e-9)
