@@ -58,7 +58,7 @@ def page(server):
     with sync_playwright() as p:
         browser = p.chromium.launch(executable_path=CHROMIUM, args=FLAGS, headless=True)
         pg = browser.new_page(viewport={"width": 1440, "height": 1000})
-        pg.set_default_timeout(30000)
+        pg.set_default_timeout(90000)  # generous: a loaded 2-core CI machine renders slowly
         pg.goto(server[0])
         pg.wait_for_selector("#fig-check .main-svg")
         yield pg
