@@ -14,6 +14,7 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from .errors import InputError
 from .process import ProcessingResult
@@ -33,7 +34,13 @@ def write_csv(path: Path, table) -> None:
     columns = {}
     plain = True  # no string needs quoting: write none (names with , " or newlines get quoted)
     for name in table.columns:
-        values = table[name].to_numpy()
+        column = table[name]
+        if isinstance(column.dtype, pd.CategoricalDtype):  # codes and categories: no string per row
+            categories = [str(c) for c in column.cat.categories]
+            plain &= not any(ch in v for v in categories for ch in ',"\n\r')
+            columns[name] = pa.DictionaryArray.from_arrays(pa.array(column.cat.codes.to_numpy()), pa.array(categories))
+            continue
+        values = column.to_numpy()
         if name in CSV_DECIMALS and values.dtype.kind == "f":
             values = np.round(values, CSV_DECIMALS[name]) + 0.0  # + 0.0 turns -0.0 into 0.0
         if values.dtype.kind == "O":

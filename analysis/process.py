@@ -100,44 +100,55 @@ class ProcessingResult:
     reductions: dict[tuple[str, str], xr.Dataset]  # (subject, polarization) -> reduction_db, bound
 
     def rcs_table(self) -> pd.DataFrame:
-        """rcs.csv rows: every subject, over the valid band."""
+        """rcs.csv rows: every subject, over the valid band (string columns categorical)."""
         f = self.frequency_hz[self.valid_mask]
-        frames = []
         margin = self.settings["floor_margin_db"]
-        for name, t in self.targets.items():
-            if t.role != "subject":
-                continue
+        subjects = [name for name, t in self.targets.items() if t.role == "subject"]
+        if not subjects:
+            return pd.DataFrame(columns=RCS_COLUMNS)
+        parts = {k: [] for k in RCS_COLUMNS}
+        for k, name in enumerate(subjects):
+            t = self.targets[name]
             amp = t.amplitude.values[:, :, self.valid_mask]
-            floor = t.floor.values[:, None, self.valid_mask]
+            floor = np.broadcast_to(t.floor.values[:, None, self.valid_mask], amp.shape)
             sigma = np.abs(amp) ** 2
             npol, nang, nf = amp.shape
-            frames.append(pd.DataFrame({
-                "target": name,
-                "polarization": np.repeat(t.amplitude.polarization.values, nang * nf),
-                "angle_deg": np.tile(np.repeat(t.amplitude.angle.values, nf), npol),
-                "frequency_hz": np.tile(f, npol * nang),
-                "rcs_dbsm": (10 * np.log10(sigma)).ravel(),
-                "phase_deg": np.degrees(np.angle(amp)).ravel(),
-                "floor_dbsm": (10 * np.log10(np.broadcast_to(floor, sigma.shape))).ravel(),
-                "floor_limited": (sigma < floor * 10 ** (margin / 10)).ravel(),
-            }))
-        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=RCS_COLUMNS)
+            pols = [POLARIZATION_ORDER.index(str(p)) for p in t.amplitude.polarization.values]
+            parts["target"].append(np.full(amp.size, k, dtype=np.int16))
+            parts["polarization"].append(np.repeat(np.array(pols, dtype=np.int8), nang * nf))
+            parts["angle_deg"].append(np.tile(np.repeat(t.amplitude.angle.values, nf), npol))
+            parts["frequency_hz"].append(np.tile(f, npol * nang))
+            parts["rcs_dbsm"].append((10 * np.log10(sigma)).ravel())
+            parts["phase_deg"].append(np.degrees(np.angle(amp)).ravel())
+            parts["floor_dbsm"].append((10 * np.log10(floor)).ravel())
+            parts["floor_limited"].append((sigma < floor * 10 ** (margin / 10)).ravel())
+        cols = {k: np.concatenate(v) for k, v in parts.items()}
+        cols["target"] = pd.Categorical.from_codes(cols["target"], categories=subjects)
+        cols["polarization"] = pd.Categorical.from_codes(cols["polarization"], categories=POLARIZATION_ORDER)
+        return pd.DataFrame(cols, columns=RCS_COLUMNS)
 
     def reduction_table(self) -> pd.DataFrame:
-        """reduction.csv rows: every subject with a baseline, over the valid band."""
-        frames = []
+        """reduction.csv rows: every subject with a baseline, over the valid band (strings categorical)."""
+        if not self.reductions:
+            return pd.DataFrame(columns=REDUCTION_COLUMNS)
+        names = list(self.targets)
+        parts = {k: [] for k in REDUCTION_COLUMNS}
         for (subject, pol), ds in self.reductions.items():
-            t = self.targets[subject]
             red = ds["reduction_db"].values
             nang, nf = red.shape
-            frames.append(pd.DataFrame({
-                "subject": subject, "baseline": t.baseline, "polarization": pol,
-                "angle_deg": np.repeat(ds.angle.values, nf),
-                "frequency_hz": np.tile(ds.frequency.values, nang),
-                "reduction_db": red.ravel(),
-                "bound": ds["bound"].values.ravel(),
-            }))
-        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=REDUCTION_COLUMNS)
+            parts["subject"].append(np.full(red.size, names.index(subject), dtype=np.int16))
+            parts["baseline"].append(np.full(red.size, names.index(self.targets[subject].baseline), dtype=np.int16))
+            parts["polarization"].append(np.full(red.size, POLARIZATION_ORDER.index(pol), dtype=np.int8))
+            parts["angle_deg"].append(np.repeat(ds.angle.values, nf))
+            parts["frequency_hz"].append(np.tile(ds.frequency.values, nang))
+            parts["reduction_db"].append(red.ravel())
+            parts["bound"].append(np.searchsorted(BOUND_ORDER, ds["bound"].values.ravel().astype(str)).astype(np.int8))
+        cols = {k: np.concatenate(v) for k, v in parts.items()}
+        for key in ("subject", "baseline"):
+            cols[key] = pd.Categorical.from_codes(cols[key], categories=names)
+        cols["polarization"] = pd.Categorical.from_codes(cols["polarization"], categories=POLARIZATION_ORDER)
+        cols["bound"] = pd.Categorical.from_codes(cols["bound"], categories=BOUND_ORDER)
+        return pd.DataFrame(cols, columns=REDUCTION_COLUMNS)
 
     def summary(self) -> dict[str, Any]:
         return {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
@@ -145,6 +156,8 @@ class ProcessingResult:
                 "metrics": self.metrics, "warnings": self.warnings}
 
 
+POLARIZATION_ORDER = ["HH", "VV", "HV", "VH"]
+BOUND_ORDER = sorted(metrics.BOUNDS)  # sorted, for searchsorted
 RCS_COLUMNS = ["target", "polarization", "angle_deg", "frequency_hz", "rcs_dbsm", "phase_deg", "floor_dbsm",
                "floor_limited"]
 REDUCTION_COLUMNS = ["subject", "baseline", "polarization", "angle_deg", "frequency_hz", "reduction_db", "bound"]

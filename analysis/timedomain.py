@@ -100,7 +100,14 @@ def _checked(frequency_hz, s, pad_factor):
         raise InputError(f"sweep has shape {s.shape}: its last axis must hold the {f.size} frequencies")
     if int(pad_factor) != pad_factor or pad_factor < 1:
         raise InputError(f"pad_factor must be an integer >= 1, got {pad_factor!r}")
-    return f, s, df, f.size, int(pad_factor) * f.size
+    return f, s, df, f.size, transform_length(f.size, int(pad_factor))
+
+
+def transform_length(n: int, pad_factor: int) -> int:
+    """FFT length for n points zero-padded pad_factor times: n itself when pad_factor is 1,
+    else the next length at least pad_factor * n that the FFT factors quickly (a prime n such
+    as 1601 would otherwise force a slow prime-length transform)."""
+    return n if pad_factor == 1 else scipy.fft.next_fast_len(pad_factor * n)
 
 
 def _range_axis(df, m):
@@ -125,7 +132,7 @@ def _check_gate(span_m, edge_fraction):
 # --------------------------------------------------------------------------- profiles and gates
 
 def range_profile(frequency_hz, s, window="kaiser", kaiser_beta=6.0, pad_factor=4):
-    """Band-pass range profile: (range_m (m,), profile (..., m) complex), m = pad_factor * n.
+    """Band-pass range profile: (range_m (m,), profile (..., m) complex), m = transform_length(n, pad_factor).
 
     The sweep is windowed, zero-padded to m points and inverse-FFT'd over the last axis;
     scaled by m / sum(window) so that a unit echo exp(-j 2 k r) peaks at magnitude ~1 at r.
@@ -188,7 +195,7 @@ def time_gate(frequency_hz, s, center_m, span_m, window="kaiser", kaiser_beta=6.
               edge_fraction=DEFAULT_EDGE_FRACTION, normalise=True) -> np.ndarray:
     """Time-gated sweeps (..., nf): keep the echoes within ``span_m`` around ``center_m`` (m).
 
-    Window the sweep, zero-pad to pad_factor * nf (1 = no padding), inverse FFT, multiply by
+    Window the sweep, zero-pad to about pad_factor * nf (1 = no padding), inverse FFT, multiply by
     ``gate_shape`` (flat top, raised-cosine edges each ``edge_fraction * span_m`` wide), FFT back
     and keep the first nf samples. With ``normalise`` the result is divided by
     ``gate_distortion`` (computed once per call): an isolated point echo at the centre comes back

@@ -14,6 +14,7 @@ import scipy.signal.windows as sw
 from analysis.errors import InputError
 from analysis.timedomain import (
     find_echo_range, frequency_window, gate_distortion, gate_far_edge_ok, gate_noise_gain, gate_shape, range_profile,
+    transform_length,
     resolution_m, time_gate, unambiguous_range_m, uniform_step_hz, valid_band_mask,
 )
 
@@ -43,10 +44,11 @@ def test_resolution_and_unambiguous_range_against_radar_formulas():
 def test_point_echo_profile_peaks_at_its_range():
     ranges = np.array([0.73, 4.2137, 9.9, 14.2])
     r_axis, p = range_profile(F, echo(ranges))  # vectorised over the leading axis
-    assert p.shape == (4, 4 * F.size)
+    m = transform_length(F.size, 4)
+    assert p.shape == (4, m) and 4 * F.size <= m < 4.1 * F.size
     assert r_axis[-1] < unambiguous_range_m(F)
     # profile axis r = c0 t / 2 over [0, c0/(2 df)), step c0/(2 m df)
-    np.testing.assert_allclose(np.diff(r_axis), C0_SI / (2 * 4 * F.size * 10e6), rtol=1e-12)
+    np.testing.assert_allclose(np.diff(r_axis), C0_SI / (2 * m * 10e6), rtol=1e-12)
     peak = r_axis[np.argmax(np.abs(p), axis=-1)]
     assert np.all(np.abs(peak - ranges) <= 0.5 * (r_axis[1] - r_axis[0]) + 1e-12)
     # unit echo peaks at ~1 (window-sum scaling); the rest is scalloping at pad 4
@@ -58,14 +60,22 @@ def test_point_echo_profile_peaks_at_its_range():
 
 def test_rect_profile_nulls_one_cell_from_the_peak():
     # Dirichlet kernel of a rectangular band (DFT textbook result): the first nulls of a point echo
-    # lie at +/- 1/(N df) in delay, i.e. +/- c0/(2 N df) in range
+    # lie at +/- 1/(N df) in delay, i.e. +/- c0/(2 N df) in range; the whole profile is the kernel
+    # |sin(pi N x) / (N sin(pi x))| at x = (j - j0) / m
     pad = 4
-    dr = C0_SI / (2 * pad * F.size * 10e6)
+    m = transform_length(F.size, pad)
+    dr = C0_SI / (2 * m * 10e6)
     r0 = 500 * dr  # on the grid
     _, p = range_profile(F, echo(r0), window="rect", pad_factor=pad)
     assert abs(p[500]) == pytest.approx(1.0, abs=1e-12)
-    assert abs(p[500 - pad]) < 1e-12 and abs(p[500 + pad]) < 1e-12
-    assert abs(p[500 + pad // 2]) > 0.5
+    x = (np.arange(m) - 500) / m
+    with np.errstate(invalid="ignore", divide="ignore"):
+        kernel = np.abs(np.sin(np.pi * F.size * x) / (F.size * np.sin(np.pi * x)))
+    kernel[500] = 1.0
+    np.testing.assert_allclose(np.abs(p), kernel, atol=1e-9)
+    # with an exact multiple (pad 1: m = N) the first nulls fall on the neighbouring samples
+    _, p1 = range_profile(F, echo(100 * C0_SI / (2 * F.size * 10e6)), window="rect", pad_factor=1)
+    assert abs(p1[99]) < 1e-9 and abs(p1[101]) < 1e-9
 
 
 def test_find_echo_range_search_window_and_several_sweeps():
@@ -186,7 +196,7 @@ def test_gate_distortion_is_window_times_rolloff_without_range_phase():
     dk = gate_distortion(F, 4.2, 1.0)
     np.testing.assert_allclose(dk[150:251], sw.kaiser(401, 6.0)[150:251], atol=1e-3)
     # the gate at another centre gives the same distortion (range phase removed), up to padding sampling
-    np.testing.assert_allclose(gate_distortion(F, 4.2 + 0.75 * C0_SI / (2 * 4 * 401 * 1e7), 1.0), dk,
+    np.testing.assert_allclose(gate_distortion(F, 4.2 + 0.75 * C0_SI / (2 * transform_length(401, 4) * 1e7), 1.0), dk,
                                atol=2e-3)
 
 
