@@ -8,6 +8,7 @@ campaign rebuilt from the store, in a background job.
 from __future__ import annotations
 
 import functools
+import threading
 from collections import OrderedDict
 from dataclasses import replace
 
@@ -83,13 +84,15 @@ def memo(method):
     def wrapper(self, *args):
         key = (name, _hashable(args))
         cache = self._cache
-        if key in cache:
-            cache.move_to_end(key)
-            return cache[key]
+        with self._cache_lock:  # the server answers requests on several threads
+            if key in cache:
+                cache.move_to_end(key)
+                return cache[key]
         out = method(self, *args)
-        cache[key] = out
-        while len(cache) > 256:
-            cache.popitem(last=False)
+        with self._cache_lock:
+            cache[key] = out
+            while len(cache) > 256:
+                cache.popitem(last=False)
         return out
 
     return wrapper
@@ -102,9 +105,11 @@ class Views:
         self.source = source
         self.jobs = jobs or JobManager()
         self._cache: OrderedDict = OrderedDict()
+        self._cache_lock = threading.Lock()
 
     def clear_cache(self) -> None:
-        self._cache.clear()
+        with self._cache_lock:
+            self._cache.clear()
 
     # ------------------------------------------------------------------ runs
     def run_options(self) -> list[dict]:
