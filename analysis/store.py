@@ -111,6 +111,7 @@ def _sqlite_engine(url: str):
         cur = dbapi_conn.cursor()
         cur.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
         cur.execute("PRAGMA journal_mode = WAL")
+        cur.execute("PRAGMA synchronous = NORMAL")  # WAL + NORMAL: consistent after a crash, one fsync per checkpoint
         cur.execute("PRAGMA foreign_keys = ON")
         cur.close()
 
