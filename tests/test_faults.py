@@ -100,22 +100,25 @@ def test_sigkill_during_process_leaves_store_and_outputs_consistent(campaign, tm
         pytest.skip("analysis.store (the results store module) is missing: nothing to record runs")
     url = f"sqlite:///{tmp_path / 'store.db'}"
     ref_out = tmp_path / "ref"
-    t0 = time.monotonic()
     p = process(campaign, ref_out, "--store", url)
+    assert p.wait(timeout=300) == 0, p.stderr.read()
+    # time a run like the ones to be killed (campaign already stored: a new run only)
+    t0 = time.monotonic()
+    p = process(campaign, tmp_path / "timing", "--store", url)
     assert p.wait(timeout=300) == 0, p.stderr.read()
     duration = time.monotonic() - t0
     complete = store_state(url)
-    assert len(complete) == 1 and all(n > 0 for n in next(iter(complete.values()))[:2])
+    assert len(complete) == 2 and all(n > 0 for n in next(iter(complete.values()))[:2])
     shape = next(iter(complete.values()))
     assert [r["run_id"] if "run_id" in r else r.get("id") for r in store.list_runs(url)]  # the store's own view
 
     rng = random.Random(11)
     out = tmp_path / "out"
     killed = 0
-    for attempt in range(4):
+    for attempt in range(5):
         before = store_state(url)
         p = process(campaign, out, "--store", url)
-        time.sleep(rng.uniform(0.3, 1.05) * duration)
+        time.sleep(rng.uniform(0.15, 0.9) * duration)
         if p.poll() is None:
             p.send_signal(signal.SIGKILL)
             killed += 1
