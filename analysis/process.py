@@ -226,6 +226,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
     # ---- gate every non-background target, average repeats
     gated: dict[str, dict[str, Any]] = {}
+    noise_cache: dict[tuple, tuple[np.ndarray, str]] = {}
     for name, cube in campaign.cubes.items():
         if cube.spec.role == "background":
             continue
@@ -237,8 +238,11 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         else:
             g_mean = timedomain.time_gate(f, d[:, :, 0, :], center, span, **gate)
             var_mean, n_rep = None, 1
-        noise, how = calibrate.gated_noise_power(f, bg.data.sel(polarization=cube.polarizations).values,
-                                                 center, span, **gate)
+        key = (bg.name, tuple(cube.polarizations), center, span)
+        if key not in noise_cache:  # targets sharing a background and a gate share its floor
+            noise_cache[key] = calibrate.gated_noise_power(f, bg.data.sel(polarization=cube.polarizations).values,
+                                                           center, span, **gate)
+        noise, how = noise_cache[key]
         resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
         gated[name] = {"cube": cube, "g": g_mean, "var": var_mean, "noise": resid, "floor_method": how,
                        "center": center, "span": span}
