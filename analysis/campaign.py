@@ -30,7 +30,6 @@ FIELD_REGEX = {
     "angle": r"(?P<angle>[+-]?(?:\d+(?:\.\d*)?|\.\d+))",
     "repeat": r"(?P<repeat>\d+)",
 }
-FAR_FIELD_WARNING = "far field"
 BISTATIC_WARN_DEG = 10.0
 
 
@@ -305,7 +304,7 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
             if size is not None:
                 far = 2 * size ** 2 / lam_min
                 if spec.range_m < far:
-                    warn(str(InputError(f"target {name}: range {spec.range_m:g} m is shorter than the {FAR_FIELD_WARNING} "
+                    warn(str(InputError(f"target {name}: range {spec.range_m:g} m is shorter than the far field "
                                         f"distance 2 D^2/lambda = {far:.2f} m (D = {size:g} m at {f_top / 1e9:.3g} GHz)",
                                         mpath, spec.line)))
         if spec.role == "reference" or spec.is_check:

@@ -64,21 +64,15 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
         out = outputs.prepare_out_dir(out_dir)
         html = None
         if report:
-            try:
-                from .report import render_report
-            except ImportError:
-                render_report = None
-            if render_report is not None:
-                html = render_report(result, campaign)
+            from .report import render_report  # imported only when used: plotly is slow to import
+
+            html = render_report(result, campaign)
         run_id, url = None, None
         if store_url is not None:
-            try:
-                from . import store
-            except ImportError:
-                store = None
-            if store is not None:
-                url = store.resolve_url(store_url or None)
-                run_id = store.record_run(url, campaign, result)
+            from . import store
+
+            url = store.resolve_url(store_url or None)
+            run_id = store.record_run(url, campaign, result)
         extra = {"run_id": run_id} if run_id is not None else None
         paths = outputs.write_outputs(result, out, extra)
         if html is not None:

@@ -245,10 +245,6 @@ def test_figures_decimate_what_they_send(run_dir):
 
 
 def test_report_command_from_the_store(run_dir, tmp_path):
-    try:
-        from analysis import store
-    except ImportError:
-        pytest.skip("analysis.store not built yet")
     from analysis.cli import main
 
     root, _ = run_dir
