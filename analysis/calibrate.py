@@ -2,13 +2,13 @@
 
 Arrays are complex numpy arrays with frequency on the last axis, leading axes
 (polarization, angle[, repeat]). Ranges in metres, frequencies in Hz, engineering
-exp(+j w t). See DESIGN.md section 3, steps 2, 5 and 7.
+exp(+j w t). See README, The processing chain, steps 1, 3 and 5.
 
 Calibration (substitution): with D the gated, background-subtracted sweep and A the
 complex scattering amplitude (m), D_ref = G' A_ref exp(-j 2 k R_ref) / R_ref^2 where G'
 holds the system response and the reference-plane offset. The factor
 K = A_ref,theory / (D_ref R_ref^2 exp(+j 2 k R_ref)) then gives any target's amplitude as
-A_t = K D_t R_t^2 exp(+j 2 k R_t), which is DESIGN.md's
+A_t = K D_t R_t^2 exp(+j 2 k R_t), which is README's
 A_ref * D_t / D_ref * (R_t / R_ref)^2 * exp(+j 2 k (R_t - R_ref)).
 """
 

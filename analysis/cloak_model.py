@@ -21,7 +21,7 @@ TM: q_n = sqrt(eps/mu) F_n'(k1 b)/F_n(k1 b), F_n(x) = J_n(x) - [J_n(k1 a)/Y_n(k1
 coefficients -J_n/H2_n (TM) and -J_n'/H2_n' (TE).
 
 Back-scatter coefficient S = sum_{all n} (-1)^n a_n; 2-D echo width (4/k)|S|^2 =
-(2 lambda/pi)|S|^2.  Amplitudes follow :mod:`analysis.references` exactly (same BSA sign for
+(2 lambda/pi)|S|^2.  Amplitudes follow :mod:`cloakrcs.references` exactly (same BSA sign for
 HH, same 2-D to 3-D phase rule as ``references.cylinder_amplitude``):
 
     2-D:  amp = 2 exp(+j pi/4) S / sqrt(k)  (VV),  -2 exp(+j pi/4) S / sqrt(k)  (HH)   [m^0.5]
@@ -53,8 +53,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
-from analysis.constants import C0
-from analysis.errors import InputError
+from .constants import C0
+from .errors import InputError
 
 BARE_KEYS = {"radius_m", "length_m", "bolt", "mount_deg"}
 COATED_KEYS = {"radius_m", "length_m", "thickness_m", "eps_r", "mu_r", "seam", "mount_deg"}

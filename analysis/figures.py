@@ -1,6 +1,6 @@
 """Plotly figures of a processing run, shared by the HTML report and the dashboard.
 
-Every builder is a pure function of a :class:`~analysis.process.ProcessingResult` (or of a
+Every builder is a pure function of a :class:`~cloakrcs.process.ProcessingResult` (or of a
 campaign / a raw sweep for the range profile) and returns a ``plotly.graph_objects.Figure``.
 They only read results: no physics is redone here beyond evaluating a range profile of raw
 sweeps and the analytic theory of a check target. What they send is decimated: at most
@@ -262,7 +262,7 @@ def fig_check(result, check_row: dict, specular_deg: float = 0.0) -> go.Figure:
 
 
 def range_profile_db(frequency_hz, sweep, window="kaiser", kaiser_beta=6.0, pad_factor=4):
-    """(range_m, 20 log10 |profile|) of one sweep, via analysis.timedomain.range_profile."""
+    """(range_m, 20 log10 |profile|) of one sweep, via cloakrcs.timedomain.range_profile."""
     from .timedomain import range_profile
 
     r, p = range_profile(frequency_hz, np.asarray(sweep), window, kaiser_beta, pad_factor)
@@ -299,7 +299,7 @@ def fig_range_profile(campaign_or_sweep, target: str | None = None, pol: str | N
 
     ``campaign_or_sweep``: a Campaign (raw and background-subtracted profiles of ``target``) or a
     tuple (frequency_hz, sweep[, label]). ``gate``: {center_m, span_m}; the gate shape (0..1, right
-    axis) is analysis.timedomain.gate_shape with edges ``edge_fraction`` of the span.
+    axis) is cloakrcs.timedomain.gate_shape with edges ``edge_fraction`` of the span.
     """
     from .timedomain import gate_shape
 

@@ -2,7 +2,7 @@
 
 The manifest sits beside the data; file patterns are relative to its folder and may
 climb out of it (``../shared/empty_{pol}.s1p``), as labs share background sweeps.
-Every problem is an :class:`~analysis.errors.InputError` naming the manifest and,
+Every problem is an :class:`~cloakrcs.errors.InputError` naming the manifest and,
 where it can be found, the line.
 """
 

@@ -1,6 +1,6 @@
 """Cloak metrics: reduction, band and sector averages, bandwidth, worst angle, bounds, uncertainty.
 
-Conventions (DESIGN.md section 3.8): sigma arrays are linear m^2 shaped
+Conventions (README, The processing chain, step 6): sigma arrays are linear m^2 shaped
 (angle, frequency); reduction = 10 log10(sigma_baseline / sigma_subject) dB, positive
 means less scattering. Band and sector averages sum linear sigma first, then take dB.
 Angles are wrapped to (-180, 180]; a sector START > STOP crosses +/-180.
@@ -51,7 +51,7 @@ def point_bounds(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> n
 
 
 def aggregate_bound(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> str:
-    """Bound of a band/sector metric from the points in it (DESIGN.md section 3.7)."""
+    """Bound of a band/sector metric from the points in it (README, The processing chain, step 6)."""
     s, b = bool(np.any(subject_limited)), bool(np.any(baseline_limited))
     return {(False, False): "none", (True, False): "lower", (False, True): "upper"}.get((s, b), "undetermined")
 
@@ -129,7 +129,7 @@ def worst_angle(angle_deg, sigma_baseline, sigma_subject) -> tuple[float, float]
 def interference_uncertainty_db(snr_db):
     """Standard uncertainty (dB) of a power next to a random-phase interferer SNR dB below.
 
-    8.686 * 10^(-SNR/20) / sqrt(2) (DESIGN.md section 3.9: derived from 20 log10(1 +/- 10^(-SNR/20))).
+    8.686 * 10^(-SNR/20) / sqrt(2) (README, The processing chain, step 7: derived from 20 log10(1 +/- 10^(-SNR/20))).
     """
     return 8.685889638 * 10 ** (-np.asarray(snr_db) / 20) / np.sqrt(2)
 
@@ -146,7 +146,7 @@ def correlated_sum_uncertainty(u_abs: np.ndarray, frequency_hz: np.ndarray, cell
 
     Samples closer than one correlation cell (an inverse gate duration) in frequency are fully
     correlated (added linearly); cells and angles are independent (added in quadrature), as
-    DESIGN.md section 3.9 says.
+    README, The processing chain, step 7 says.
     """
     f = np.asarray(frequency_hz, float)
     cell = np.floor((f - f[0]) / cell_hz).astype(int) if cell_hz > 0 else np.arange(len(f))

@@ -1,6 +1,6 @@
 """The processing chain: campaign cubes -> calibrated RCS -> checks, floor and cloak metrics.
 
-``process_campaign(campaign, settings)`` runs DESIGN.md section 3, steps 2 to 9, vectorised
+``process_campaign(campaign, settings)`` runs the chain of README, The processing chain, steps 1 to 7,, vectorised
 over polarization and angle, and returns a :class:`ProcessingResult` that the CSV/JSON
 writers, the store, the report and the dashboard read. Nothing here does I/O.
 """
@@ -371,7 +371,7 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
 
 
 def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, settings: ProcessSettings) -> list[dict]:
-    """Error of each check target against its theory over the valid band (DESIGN.md step 6)."""
+    """Error of each check target against its theory over the valid band (README, The processing chain, step 4)."""
     out = []
     f = campaign.frequency_hz[valid]
     for name, t in targets.items():

@@ -28,8 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from analysis.constants import C0
-from analysis.errors import InputError
+from .constants import C0
+from .errors import InputError
 
 POLARIZATIONS = ("HH", "HV", "VH", "VV")
 SHAPES = ("sphere", "plate", "disk", "cylinder", "dihedral", "trihedral", "table")

@@ -82,7 +82,7 @@ def slug(*parts) -> str:
 
 
 def reduction_text(value, bound: str) -> str:
-    """'12.34', 'at least 12.34', 'at most 12.34' or 'undetermined' (DESIGN.md 3.7 bounds)."""
+    """'12.34', 'at least 12.34', 'at most 12.34' or 'undetermined' (README, The processing chain, step 6)."""
     if bound == "undetermined":
         return "undetermined"
     text = _fmt(value, 2)

@@ -1,7 +1,7 @@
-"""Indicative RF-exposure estimate for chamber setups (DESIGN.md section 6).
+"""Indicative RF-exposure estimate for chamber setups (README, RF safety).
 
 Far-field power density S = P G / (4 pi r^2) against the ICNIRP 2020 whole-body reference
-levels (Table 5; values from memory, as DESIGN.md section 6 gives them). The result is
+levels (Table 5; values from memory, as README, RF safety gives them). The result is
 indicative only: it never states that a setup is compliant; local regulations and the
 site's RF safety rules decide.
 """

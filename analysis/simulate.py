@@ -1,4 +1,4 @@
-"""Synthetic anechoic chamber: planning figures and demo/test campaigns (DESIGN.md section 2).
+"""Synthetic anechoic chamber: planning figures and demo/test campaigns (README, Signal model).
 
 Each sweep is (engineering convention exp(+j w t), k = 2 pi f / c0, ranges in m)::
 
@@ -13,8 +13,8 @@ Each sweep is (engineering convention exp(+j w t), k = 2 pi f / c0, ranges in m)
   a fixed random phase (seeded); P_s the support's echo (foam column / pylon), the same form at
   support.range_m, independent of angle, multiplied by (1 + change e^{j change_deg}) in sweeps
   with a target on it (target-support interaction: a repeated background cannot see it).
-* A: the target's complex amplitude (m) from :mod:`analysis.references` (canonical shapes) or
-  :mod:`analysis.cloak_model` (bare_cylinder, coated_cylinder); zero for "empty".
+* A: the target's complex amplitude (m) from :mod:`cloakrcs.references` (canonical shapes) or
+  :mod:`cloakrcs.cloak_model` (bare_cylinder, coated_cylinder); zero for "empty".
 * d_s: each sweep's drift, 10^(N(0, amplitude_db)/20) e^{j N(0, phase_deg)} e^{-j2k N(0, length_m)}.
 * n: complex Gaussian noise, rms |G(f)| 10^(noise.level_db/20) per point.
 
@@ -47,13 +47,13 @@ Config (TOML; every key, with its default)::
                model (radius_m, width_m, height_m, length_m, orientation, fold_m, face_m,
                roll_deg, edge_m, kind) for canonical shapes; for cylinders radius_m, length_m,
                thickness_m, eps_r, mu_r ([re, im], im <= 0 for loss), seam = {azimuth_deg,
-               width_m}, bolt = {azimuth_deg, radius_m}, mount_deg (see analysis.cloak_model).
+               width_m}, bolt = {azimuth_deg, radius_m}, mount_deg (see cloakrcs.cloak_model).
 
 A target whose model is a canonical shape gets ``shape`` and its keys in the manifest: as a
 subject it is a check target.  Files: angles written as ``%05.1f`` (000.0, 005.0, -30.0),
 repeats 1..n.  ``truth/`` holds the noise-free calibrated RCS of every subject
 (rcs.csv), the reduction of each subject that has a baseline (reduction.csv) and the
-band-averaged reductions (metrics.json, DESIGN.md 3.8).
+band-averaged reductions (metrics.json, README, The processing chain, step 6).
 """
 
 from __future__ import annotations
@@ -68,10 +68,10 @@ from pathlib import Path
 
 import numpy as np
 
-from analysis import cloak_model
-from analysis.constants import C0
-from analysis.errors import InputError
-from analysis.manifest import SHAPE_KEYS
+from . import cloak_model
+from .constants import C0
+from .errors import InputError
+from .manifest import SHAPE_KEYS
 
 ROLES = ("background", "reference", "subject")
 SHAPE_MODELS = ("sphere", "plate", "disk", "cylinder", "dihedral", "trihedral")
@@ -169,7 +169,7 @@ def _normalise_target(t, i: int, cfg: dict, path) -> dict:
         raise InputError(f"{label}: key '{stray[0]}' does not belong to model {model!r}", path)
     out["params"] = params
     if model in SHAPE_MODELS:
-        from analysis import references
+        from . import references
         for key in references.required_keys(model):
             if key not in params:
                 raise InputError(f"{label}: model {model!r} needs the key '{key}'", path)
@@ -349,7 +349,7 @@ def model_amplitude(target: dict, frequency_hz, angle_deg, polarization) -> np.n
         return cloak_model.bare_cylinder_amplitude(params, f, t, polarization)
     if model == "coated_cylinder":
         return cloak_model.coated_cylinder_amplitude(params, f, t, polarization)
-    from analysis import references
+    from . import references
     return references.reference_amplitude({"shape": model, **params}, f, t, polarization)
 
 
@@ -508,7 +508,7 @@ def _toml_value(v) -> str:
 
 
 def manifest_text(cfg: dict) -> str:
-    """The campaign manifest (TOML) for the simulated files (schema of analysis.manifest)."""
+    """The campaign manifest (TOML) for the simulated files (schema of cloakrcs.manifest)."""
     c = cfg["campaign"]
     lines = ["# Synthetic campaign written by `cloakrcs simulate` (invented scenario).", "", "[campaign]",
              f"name = {_toml_value(c['name'])}"]
@@ -563,7 +563,7 @@ def band_mask(cfg: dict, frequency_hz) -> np.ndarray:
 
 
 def truth_metrics(cfg: dict, frequency_hz, amplitudes: dict) -> dict:
-    """Band-averaged reduction per subject with a baseline and per polarization (DESIGN.md 3.8):
+    """Band-averaged reduction per subject with a baseline and per polarization (README, The processing chain, step 6):
     10 log10(sum sigma_baseline / sum sigma_subject) over the band and all angles (linear sums, then
     dB), and the best of the all-angle curve R(f) = 10 log10(sum_angles sigma_b / sum_angles sigma_s)."""
     f = np.asarray(frequency_hz, float)
@@ -662,7 +662,7 @@ def simulate_campaign(config: dict, out_dir) -> SimulationResult:
     Vectorised: each target's amplitudes for all angles and frequencies are one array per
     polarization; the loop runs over files only.
     """
-    from analysis.touchstone import write_touchstone
+    from .touchstone import write_touchstone
 
     cfg = normalise_config(config)
     out = Path(out_dir)

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from analysis.errors import InputError
+from .errors import InputError
 
 
 def parse_span(text, name: str) -> np.ndarray:

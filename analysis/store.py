@@ -2,7 +2,7 @@
 
 A SQLite file by default (:func:`default_url`, overridden by ``--store URL`` or the
 ``CLOAKRCS_STORE`` environment variable), or PostgreSQL by URL
-(``postgresql+psycopg://user:pw@host/db``). Tables: :mod:`analysis.store_schema`; the
+(``postgresql+psycopg://user:pw@host/db``). Tables: :mod:`cloakrcs.store_schema`; the
 schema is created and upgraded by the Alembic migrations in ``analysis/migrations``
 whenever a store is opened.
 
@@ -675,7 +675,7 @@ def parse_manifest_text(text: str, path: str | Path):
 
 
 def load_campaign_from_store(url: str | None, campaign_id: int, run_id: int | None = None):
-    """Rebuild an :class:`analysis.campaign.Campaign` from the store alone (no data file is read).
+    """Rebuild an :class:`cloakrcs.campaign.Campaign` from the store alone (no data file is read).
 
     The manifest is re-parsed from the stored text (the text the run ``run_id`` used, when
     given); raw sweeps come back bit for bit (complex128). Table-shape references still
@@ -740,7 +740,7 @@ def load_result(url: str | None, run_id: int) -> dict:
     gate, shape, amplitude (complex xarray (polarization, angle, frequency), m),
     floor (xarray (polarization, frequency), m^2), rep_rel_u (xarray or None)}};
     ``reductions`` {(subject, pol): xarray.Dataset reduction_db, bound (angle, frequency)}; and
-    ``result``: the same as an :class:`analysis.process.ProcessingResult`.
+    ``result``: the same as an :class:`cloakrcs.process.ProcessingResult`.
     """
     from .process import ProcessingResult, TargetResult
 

@@ -1,6 +1,6 @@
 """Range profiles, frequency windows and time gating of band-pass VNA sweeps.
 
-Conventions (DESIGN.md sections 2, 3.3, 3.4):
+Conventions (README, Signal model and The processing chain, step 2):
 
 * Sweeps are complex arrays with frequency on the LAST axis and any leading shape
   (polarization, angle, repeat, ...); every function is vectorised over the leading axes.
@@ -17,8 +17,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.fft
 
-from analysis.constants import C0
-from analysis.errors import InputError
+from .constants import C0
+from .errors import InputError
 
 WINDOWS = ("kaiser", "hann", "rect")
 DEFAULT_EDGE_FRACTION = 0.2  # each soft gate edge is 20 % of the span wide (-6 dB points at the span ends)

@@ -19,7 +19,7 @@ Conventions
   falls, and version 2 ``[Noise Data]``) and ``[Begin Information]`` blocks are skipped.
 * Mixed-mode files (``[Mixed-Mode Order]``) are refused.
 
-Every problem with a file raises ``analysis.errors.InputError`` naming the file and, where
+Every problem with a file raises ``cloakrcs.errors.InputError`` naming the file and, where
 there is one, the line.
 """
 
@@ -38,7 +38,7 @@ from itertools import chain, repeat
 import numpy as np
 import pandas as pd
 
-from analysis.errors import InputError
+from .errors import InputError
 
 __all__ = [
     "Touchstone",

@@ -1,5 +1,5 @@
 """The Dash app: ``create_app(store_url) -> dash.Dash`` (a store URL, None for the default store,
-or a dashboard.data source object)."""
+or a cloakrcs.dashboard.data source object)."""
 
 from __future__ import annotations
 

@@ -1,7 +1,7 @@
 """Callbacks: each view's logic as a plain method of :class:`Views` (unit-testable), wired by ``register``.
 
-Views read stored results through a source (dashboard.data) and build figures with
-analysis.figures and dashboard.plots; re-gating calls analysis.process.process_campaign on the
+Views read stored results through a source (cloakrcs.dashboard.data) and build figures with
+cloakrcs.figures and cloakrcs.dashboard.plots; re-gating calls cloakrcs.process.process_campaign on the
 campaign rebuilt from the store, in a background job.
 """
 
@@ -16,9 +16,9 @@ import numpy as np
 from dash import Input, Output, State, html, no_update
 from dash.exceptions import PreventUpdate
 
-from analysis import figures as F
-from analysis.errors import InputError
-from analysis.process import ProcessSettings, process_campaign
+from .. import figures as F
+from ..errors import InputError
+from ..process import ProcessSettings, process_campaign
 
 from . import plots
 from .jobs import JobManager
@@ -410,7 +410,7 @@ class Views:
     # ------------------------------------------------------------------ safety
     @memo
     def safety(self, p_dbm, gain_dbi, distance_m, f_ghz, population):
-        from analysis.safety import estimate_exposure
+        from ..safety import estimate_exposure
 
         try:
             if None in (p_dbm, gain_dbi, distance_m, f_ghz):

@@ -72,10 +72,10 @@ class MemorySource:
 
 
 class StoreSource:
-    """The results database (analysis.store), read through a per-run cache."""
+    """The results database (cloakrcs.store), read through a per-run cache."""
 
     def __init__(self, url: str | None):
-        from analysis import store
+        from .. import store
 
         self.store = store
         self.url = store.resolve_url(url)

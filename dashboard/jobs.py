@@ -8,7 +8,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-from analysis.errors import InputError
+from ..errors import InputError
 
 
 class Cancelled(Exception):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dash import dash_table, dcc, html
 
-from analysis.safety import CAUTION
+from ..safety import CAUTION
 
 from .upload import MAX_COMPRESSED_BYTES
 

@@ -1,7 +1,7 @@
-"""Dashboard-only figures and overlays; the shared builders live in analysis.figures.
+"""Dashboard-only figures and overlays; the shared builders live in cloakrcs.figures.
 
 Everything here reads processing results (no physics). Traces are decimated with
-analysis.figures.decimate; maps keep at most analysis.figures.MAX_MAP cells.
+cloakrcs.figures.decimate; maps keep at most cloakrcs.figures.MAX_MAP cells.
 """
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ import numpy as np
 import plotly.graph_objects as go
 import plotly.io as pio
 
-from analysis import figures as F
+from .. import figures as F
 
 PALETTE = F.PALETTE
 CAUTION_COLOR = "#9a3412"
@@ -19,7 +19,7 @@ _TEMPLATE = go.layout.Template(layout=pio.templates["simple_white"].layout)
 
 
 def _layout(fig: go.Figure, title: str, height: int = 420) -> go.Figure:
-    """The look of analysis.figures (same fonts, grid and legend), with the lighter template."""
+    """The look of cloakrcs.figures (same fonts, grid and legend), with the lighter template."""
     fig.update_layout(
         template=_TEMPLATE, title={"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}},
         font={"family": F.FONT, "size": 12, "color": "#1d2733"}, height=height,
@@ -165,7 +165,7 @@ def fig_trend(rows: list[dict], metric: str, label: str) -> go.Figure:
 
 def fig_safety(p_dbm: float, gain_dbi: float, reference_w_m2: float, distance_m: float) -> go.Figure:
     """Far-field power density versus distance (log-log), the reference level and the chosen distance."""
-    from analysis.safety import power_density_curve
+    from ..safety import power_density_curve
 
     r = np.logspace(-1, 2, 200)
     fig = go.Figure(go.Scatter(x=r, y=power_density_curve(p_dbm, gain_dbi, r), mode="lines",

@@ -16,7 +16,7 @@ import uuid
 import zipfile
 from pathlib import Path, PurePosixPath
 
-from analysis.errors import InputError
+from ..errors import InputError
 
 MAX_COMPRESSED_BYTES = 50 * 1024 ** 2
 MAX_UNCOMPRESSED_BYTES = 200 * 1024 ** 2
@@ -120,7 +120,7 @@ def find_manifest(folder: Path, label: str = "upload.zip") -> Path:
 
 def unpack_campaign(data: bytes, upload_root: Path, filename: str = "upload.zip"):
     """Extract into a fresh folder under ``upload_root`` and load the campaign (InputError on any problem)."""
-    from analysis.campaign import load_campaign
+    from ..campaign import load_campaign
 
     label = Path(filename or "upload.zip").name
     if not label.lower().endswith(".zip"):

@@ -8,11 +8,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.batch import expand_manifests, process_many
-from analysis.campaign import load_campaign
-from analysis.cli import main
-from analysis.process import ProcessSettings, process_campaign
-from analysis.simulate import simulate_campaign
+from cloakrcs.batch import expand_manifests, process_many
+from cloakrcs.campaign import load_campaign
+from cloakrcs.cli import main
+from cloakrcs.process import ProcessSettings, process_campaign
+from cloakrcs.simulate import simulate_campaign
 
 
 def _config(name: str, seed: int, radius_m: float) -> dict:
@@ -98,6 +98,6 @@ def test_command_glob_store_and_exit_status(campaigns, tmp_path, capsys):
     assert err.count("FAILED") == 1 and "broken" in err
     for m in good:
         assert (tmp_path / "out" / serial[m].campaign / "rcs.csv").exists()
-    from analysis import store
+    from cloakrcs import store
     runs = store.list_runs(url)
     assert sorted(r["campaign"] for r in runs) == sorted(s.campaign for s in serial.values())

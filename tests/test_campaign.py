@@ -9,10 +9,10 @@ import shutil
 import numpy as np
 import pytest
 
-from analysis.campaign import inspect_campaign, load_campaign, wrap_angle_deg
-from analysis.cli import main
-from analysis.constants import C0
-from analysis.errors import InputError
+from cloakrcs.campaign import inspect_campaign, load_campaign, wrap_angle_deg
+from cloakrcs.cli import main
+from cloakrcs.constants import C0
+from cloakrcs.errors import InputError
 
 from conftest import point_echo, write_s1p
 
@@ -60,7 +60,7 @@ def test_valid_campaign_loads(tiny_campaign):
 
 
 def test_wrap_angles():
-    # DESIGN.md section 4: angles wrapped to (-180, 180]
+    # README, The processing chain, conventions: angles wrapped to (-180, 180]
     np.testing.assert_array_equal(wrap_angle_deg([0, 360, 180, -180, 190, -190, 540]), [0, 0, 180, 180, -170, 170, 180])
 
 
@@ -191,7 +191,7 @@ def test_echo_parameter_differs(tiny_campaign):
 
 
 def test_echo_parameter_differs_from_background(tmp_path):
-    from analysis import touchstone
+    from cloakrcs import touchstone
 
     f = np.linspace(8e9, 12e9, 401)
     raw = tmp_path / "raw"
@@ -228,7 +228,7 @@ files = "raw/bare.s2p"
 
 
 def test_gate_past_unambiguous_range(tiny_campaign):
-    # unambiguous range c0 / (2 df) (DESIGN.md section 3.3, standard FFT sampling)
+    # unambiguous range c0 / (2 df) (README, The processing chain, step 2, standard FFT sampling)
     df = 4e9 / 400
     unamb = C0 / (2 * df)
     edit(tiny_campaign, "span_m = 0.6", f"span_m = 0.6\ncenter_m = {unamb - 0.1:.3f}")
@@ -256,7 +256,7 @@ def test_inspect_cli_json(tiny_campaign, capsys):
     assert names["bare"]["polarizations"] == ["HH", "VV"]
     assert names["bare"]["angles_deg"] == [-5.0, 0.0, 5.0]
     assert names["empty"]["frequency_hz"] == {"start": 8e9, "stop": 12e9, "points": 401}
-    # down-range resolution c0 / (2 B) (DESIGN.md section 3.3)
+    # down-range resolution c0 / (2 B) (README, The processing chain, step 2)
     assert out["resolution_m"] == pytest.approx(C0 / (2 * 4e9))
 
 

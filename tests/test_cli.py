@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from analysis.cli import main, rejoin_negative_values
+from cloakrcs.cli import main, rejoin_negative_values
 
 ROOT = Path(__file__).resolve().parents[1]
 

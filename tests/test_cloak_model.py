@@ -1,4 +1,4 @@
-"""Coated-cylinder model of the bare object and its cloaked revisions (analysis.cloak_model)."""
+"""Coated-cylinder model of the bare object and its cloaked revisions (cloakrcs.cloak_model)."""
 
 from __future__ import annotations
 
@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scipy import special
 
-from analysis import cloak_model as cm
-from analysis import references
-from analysis.constants import C0
-from analysis.errors import InputError
+from cloakrcs import cloak_model as cm
+from cloakrcs import references
+from cloakrcs.constants import C0
+from cloakrcs.errors import InputError
 
 F = np.linspace(2e9, 14e9, 25)
 A_CORE = 0.04
@@ -17,7 +17,7 @@ L = 0.2
 
 
 def _direct_pec_echo_width(f, a, pol):
-    """Balanis, Advanced Engineering Electromagnetics, ch. 11 (also DESIGN.md table):
+    """Balanis, Advanced Engineering Electromagnetics, ch. 11:
     TM sigma_2D = (2 lambda/pi) |sum eps_n (-1)^n J_n(ka)/H2_n(ka)|^2, TE with derivatives."""
     lam = C0 / f
     x = 2 * np.pi * f / C0 * a

@@ -19,10 +19,10 @@ import numpy as np
 import pytest
 import skrf
 
-from analysis.campaign import inspect_campaign, load_campaign
-from analysis.errors import InputError
-from analysis.manifest import parse_manifest
-from analysis.touchstone import read_touchstone, write_touchstone
+from cloakrcs.campaign import inspect_campaign, load_campaign
+from cloakrcs.errors import InputError
+from cloakrcs.manifest import parse_manifest
+from cloakrcs.touchstone import read_touchstone, write_touchstone
 from conftest import point_echo, write_s1p
 
 CORPUS = Path(__file__).parent / "corpus"
@@ -205,7 +205,7 @@ def test_missing_manifest(tmp_path):
 
 
 def test_non_uniform_grid_is_refused_by_the_campaign_loader(tiny_campaign):
-    """The reader takes any increasing grid; time gating needs a uniform one (DESIGN.md)."""
+    """The reader takes any increasing grid; time gating needs a uniform one (README, The processing chain, step 2)."""
     raw = tiny_campaign.parent / "raw"
     freq = np.linspace(8e9, 12e9, 401)
     freq = np.r_[freq[:200], freq[201:]]  # one point dropped: a step twice as long at 10 GHz
@@ -227,7 +227,7 @@ MEMORY_BUDGET_X_RAW = 16
 _MEASURE = textwrap.dedent("""
     import sys
     import numpy, pandas, skrf
-    from analysis.touchstone import read_touchstone
+    from cloakrcs.touchstone import read_touchstone
 
     def status(key):  # kB, from the Linux proc(5) status file
         for line in open("/proc/self/status"):

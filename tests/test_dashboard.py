@@ -13,15 +13,15 @@ import numpy as np
 import plotly.io as pio
 import pytest
 
-from analysis.campaign import load_campaign
-from analysis.errors import InputError
-from analysis.process import process_campaign
-from dashboard import upload as U
-from dashboard.app import create_app
-from dashboard.callbacks import Views, parse_parameters
-from dashboard.data import MemorySource
-from dashboard.jobs import JobManager
-from dashboard.layout import VIEWS
+from cloakrcs.campaign import load_campaign
+from cloakrcs.errors import InputError
+from cloakrcs.process import process_campaign
+from cloakrcs.dashboard import upload as U
+from cloakrcs.dashboard.app import create_app
+from cloakrcs.dashboard.callbacks import Views, parse_parameters
+from cloakrcs.dashboard.data import MemorySource
+from cloakrcs.dashboard.jobs import JobManager
+from cloakrcs.dashboard.layout import VIEWS
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_measurements" / "manifest.toml"
 
@@ -127,7 +127,7 @@ def test_range_profile_draws_the_gate(views):
     fig = v.range_profile(rid, "bare", "HH", 0.0, 4.4, 0.4, "hann")
     gate = [t for t in fig.data if (t.name or "").startswith("gate")]
     assert gate and "4.400" in gate[0].name
-    # the gate's -6 dB (0.5) points sit at centre +/- span/2 (flat-topped gate, DESIGN.md section 3 step 4)
+    # the gate's -6 dB (0.5) points sit at centre +/- span/2 (flat-topped gate, README, The processing chain, step 2)
     x, y = np.asarray(gate[0].x), np.asarray(gate[0].y)
     inside = x[y >= 0.5]
     assert inside.min() == pytest.approx(4.2, abs=0.03) and inside.max() == pytest.approx(4.6, abs=0.03)
@@ -276,7 +276,7 @@ def test_upload_bad_manifest_gives_the_command_line_message(tiny_campaign, tmp_p
 
 
 def test_upload_manifest_cannot_reach_outside_its_folder(tiny_campaign, tmp_path):
-    # an uploaded manifest may not read files elsewhere on the server (SECURITY.md)
+    # an uploaded manifest may not read files elsewhere on the server (DEVELOPERS.md, "Security")
     outside = tmp_path / "elsewhere"
     outside.mkdir()
     (outside / "secret.s1p").write_text("# Hz S RI R 50\n1 0 0\n2 0 0\n")
@@ -292,7 +292,7 @@ def test_upload_manifest_cannot_reach_outside_its_folder(tiny_campaign, tmp_path
 # ---------------------------------------------------------------- store and serve
 
 def test_dashboard_over_a_sqlite_store(tiny_campaign, tmp_path):
-    from analysis import store
+    from cloakrcs import store
 
     url = "sqlite:///" + (tmp_path / "results.sqlite").as_posix()
     campaign = load_campaign(tiny_campaign)
@@ -308,7 +308,7 @@ def test_dashboard_over_a_sqlite_store(tiny_campaign, tmp_path):
 
 
 def test_serve_binds_loopback_by_default():
-    from analysis.cli import build_parser
+    from cloakrcs.cli import build_parser
 
     args = build_parser().parse_args(["serve"])
     assert (args.host, args.port) == ("127.0.0.1", 8050)

@@ -34,10 +34,10 @@ def server(tmp_path_factory):
         skip_or_fail("playwright (Python) is not installed")
     from werkzeug.serving import make_server
 
-    from analysis import store
-    from analysis.campaign import load_campaign
-    from analysis.process import process_campaign
-    from dashboard.app import create_app
+    from cloakrcs import store
+    from cloakrcs.campaign import load_campaign
+    from cloakrcs.process import process_campaign
+    from cloakrcs.dashboard.app import create_app
 
     tmp = tmp_path_factory.mktemp("browser")
     url = "sqlite:///" + (tmp / "results.sqlite").as_posix()

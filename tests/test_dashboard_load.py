@@ -1,6 +1,6 @@
 """The dashboard under load: simulated browsers on loopback, and hostile uploads refused meanwhile.
 
-The real app (dashboard.app.create_app over a SQLite store holding the sample campaign) runs on
+The real app (cloakrcs.dashboard.app.create_app over a SQLite store holding the sample campaign) runs on
 a threaded werkzeug server bound to 127.0.0.1. Each simulated user behaves like the Dash renderer
 in a browser: it loads the page (GET /, the assets once, /_dash-layout, /_dash-dependencies),
 fires the page's initial callbacks in dependency order with values read from the layout, then
@@ -9,7 +9,7 @@ and fires the callbacks that read them, feeding every response back into its pag
 Meanwhile an oversized zip, a zip whose members escape its folder and two zip bombs are posted
 to the upload callback; each must be refused with a one-line message in the upload status.
 
-The load generator lives here; ``benchmarks/load_dashboard.py`` imports it for the longer run.
+The load generator lives here; ``tests/benchmarks/load_dashboard.py`` imports it for the longer run.
 Duration of the test: ``CLOAKRCS_LOAD_SECONDS`` (default 20 s).
 """
 
@@ -47,7 +47,7 @@ BROWSER_CONNECTIONS = 6  # connections a browser opens per host over HTTP/1.1 (c
 # ---------------------------------------------------------------------------------- the server
 def make_store(folder: Path) -> str:
     """A SQLite store in ``folder`` holding the sample campaign, processed once; its URL."""
-    from analysis.pipeline import run_process
+    from cloakrcs.pipeline import run_process
 
     url = "sqlite:///" + (Path(folder) / "results.sqlite").as_posix()
     run_process(SAMPLE, Path(folder) / "out", store_url=url, report=False)
@@ -60,7 +60,7 @@ class Server:
     def __init__(self, store_url: str):
         from werkzeug.serving import make_server
 
-        from dashboard.app import create_app
+        from cloakrcs.dashboard.app import create_app
 
         logging.getLogger("werkzeug").setLevel(logging.WARNING)  # no line per request
         self.app = create_app(store_url)
@@ -387,7 +387,7 @@ def _info(name: str, method: int) -> zipfile.ZipInfo:
 
 def hostile_uploads() -> list[tuple[str, str, bytes, str]]:
     """(label, file name, zip bytes, phrase the refusal must contain) of the uploads that must be refused."""
-    from dashboard import upload as U
+    from cloakrcs.dashboard import upload as U
 
     zeros = bytes
     manifest = SAMPLE.read_bytes()
@@ -525,7 +525,7 @@ def run_load(base: str, store_dir: Path, upload_root: Path, users: int = 20, sec
         raise ValueError(f"users must be 1-{MAX_USERS}, got {users}")
     if not 0 < seconds <= 3600:
         raise ValueError(f"seconds must be in (0, 3600], got {seconds}")
-    from dashboard.layout import VIEWS
+    from cloakrcs.dashboard.layout import VIEWS
 
     views = [key for key, _label in VIEWS]
     stats = Stats()

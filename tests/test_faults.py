@@ -2,7 +2,7 @@
 
 After a kill the SQLite store stays consistent (integrity check, every run complete, no run
 recorded before is lost), a rerun succeeds, and every output file that carries its final name
-is complete; temporaries are ``.<name>.*.part`` (analysis.outputs.atomic_write) or the empty
+is complete; temporaries are ``.<name>.*.part`` (cloakrcs.outputs.atomic_write) or the empty
 ``.probe.*`` write probe of prepare_out_dir.
 """
 
@@ -23,9 +23,9 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from analysis.simulate import simulate_campaign
+from cloakrcs.simulate import simulate_campaign
 
-CLI = [sys.executable, "-m", "analysis.cli"]
+CLI = [sys.executable, "-m", "cloakrcs.cli"]
 ROOT = Path(__file__).resolve().parents[1]
 OUTPUTS = ("rcs.csv", "reduction.csv", "summary.json", "report.html")
 TEMPORARY = re.compile(r"^(\.(rcs\.csv|reduction\.csv|summary\.json|report\.html)\..+\.part|\.probe\..+)$")
@@ -76,7 +76,7 @@ def store_state(url: str) -> dict[int, tuple]:
     """run id -> (rows of results, metrics, checks) of that run; the SQLite integrity check passes."""
     import sqlalchemy as sa
 
-    from analysis import store_schema as S
+    from cloakrcs import store_schema as S
 
     engine = sa.create_engine(url)
     try:
@@ -95,9 +95,9 @@ def store_state(url: str) -> dict[int, tuple]:
 
 def test_sigkill_during_process_leaves_store_and_outputs_consistent(campaign, tmp_path):
     try:
-        from analysis import store
+        from cloakrcs import store
     except ImportError:
-        pytest.skip("analysis.store (the results store module) is missing: nothing to record runs")
+        pytest.skip("cloakrcs.store (the results store module) is missing: nothing to record runs")
     url = f"sqlite:///{tmp_path / 'store.db'}"
     ref_out = tmp_path / "ref"
     p = process(campaign, ref_out, "--store", url)

@@ -1,7 +1,7 @@
 """Short fuzz run for CI: random and mutated bytes into the Touchstone reader and the manifest parser.
 
 The only exception allowed out is the project's ``InputError`` (one line). The long local run
-is ``benchmarks/fuzz_long.py`` (several minutes, same mutations plus campaign loading).
+is ``tests/benchmarks/fuzz_long.py`` (several minutes, same mutations plus campaign loading).
 """
 
 from __future__ import annotations
@@ -13,9 +13,9 @@ from pathlib import Path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from analysis.errors import InputError
-from analysis.manifest import parse_manifest
-from analysis.touchstone import read_touchstone
+from cloakrcs.errors import InputError
+from cloakrcs.manifest import parse_manifest
+from cloakrcs.touchstone import read_touchstone
 
 CORPUS = Path(__file__).parent / "corpus"
 SEEDS_TS = sorted(p.read_bytes()[:4000] for p in (CORPUS / "read").iterdir()) + [

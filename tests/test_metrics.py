@@ -1,15 +1,15 @@
-"""Cloak metrics against hand calculations and the formulas of DESIGN.md sections 3.7-3.9."""
+"""Cloak metrics against hand calculations and the formulas of README, The processing chain, steps 5 to 7."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from analysis import metrics
+from cloakrcs import metrics
 
 
 def test_band_reduction_sums_linear_before_db():
-    # DESIGN.md 3.8: 10 log10(sum sigma_baseline / sum sigma_subject), linear sums first
+    # README, The processing chain, step 6: 10 log10(sum sigma_baseline / sum sigma_subject), linear sums first
     b = np.array([[1.0, 1.0], [1.0, 1.0]])
     s = np.array([[0.1, 0.01], [0.1, 0.01]])
     assert metrics.band_reduction_db(b, s) == pytest.approx(10 * np.log10(4 / 0.22))
@@ -49,7 +49,7 @@ def test_bandwidth_truncated_and_zero():
 
 def test_sector_wraps():
     a = np.array([0, 90, 150, 180, 200, 210, 300, 355.0])
-    # DESIGN.md 4: 150:-150 is the 60 degrees behind the target
+    # README, The processing chain, conventions: 150:-150 is the 60 degrees behind the target
     np.testing.assert_array_equal(metrics.sector_mask(a, (150, -150)), [0, 0, 1, 1, 1, 1, 0, 0])
     np.testing.assert_array_equal(metrics.sector_mask(a, (-30, 30)), [1, 0, 0, 0, 0, 0, 0, 1])
     assert metrics.sector_mask(a, None).all()
@@ -69,7 +69,7 @@ def test_bounds():
 
 
 def test_interference_error_values():
-    # DESIGN.md 3.7/3.9 (derived): 20 log10(1 +/- 10^(-SNR/20)); +2.4/-3.3 dB at 10 dB (common practice),
+    # README, The processing chain, steps 5 and 7 (derived): 20 log10(1 +/- 10^(-SNR/20)); +2.4/-3.3 dB at 10 dB (common practice),
     # about +0.8/-0.9 dB at 20 dB, +/-0.09 dB at 40 dB
     up, down = metrics.interference_bounds_db([10, 20, 40])
     np.testing.assert_allclose(up, [2.39, 0.83, 0.086], atol=0.01)

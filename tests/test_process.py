@@ -15,11 +15,11 @@ import re
 import numpy as np
 import pytest
 
-from analysis import references
-from analysis.campaign import load_campaign
-from analysis.cli import main
-from analysis.process import ProcessSettings, process_campaign
-from analysis.simulate import simulate_campaign
+from cloakrcs import references
+from cloakrcs.campaign import load_campaign
+from cloakrcs.cli import main
+from cloakrcs.process import ProcessSettings, process_campaign
+from cloakrcs.simulate import simulate_campaign
 
 BASE = {
     "seed": 7,
@@ -53,7 +53,7 @@ def test_check_sphere_recovered_within_half_a_db(tmp_path):
     sim = simulate(tmp_path, BASE)
     result = process_campaign(load_campaign(sim.manifest_path))
     f = result.frequency_hz[result.valid_mask]
-    # theory: the Mie series (analysis.references, checked against miepython 3 to 1e-3 dB)
+    # theory: the Mie series (cloakrcs.references, checked against miepython 3 to 1e-3 dB)
     theory = 10 * np.log10(np.abs(references.sphere_amplitude(f, 0.05)) ** 2)
     for pol in ("HH", "VV"):
         got = 10 * np.log10(result.targets["check"].sigma.sel(polarization=pol).values[:, result.valid_mask])
@@ -240,7 +240,7 @@ def test_cross_pol_calibrated_by_rolled_dihedral(tmp_path):
 def test_floor_without_repeats_matches_noise_level(tmp_path):
     # white noise of known rms through the same gate: the profile-median estimate (exponential
     # distribution of |Gaussian|^2: median = ln 2 x mean, a standard result) should land within ~1.5 dB
-    from analysis import calibrate, timedomain
+    from cloakrcs import calibrate, timedomain
 
     rng = np.random.default_rng(3)
     f = np.linspace(8e9, 12e9, 401)
@@ -285,7 +285,7 @@ def test_moving_average_equals_scipy():
     # scipy.ndimage.uniform_filter1d with mode="nearest" is the reference
     from scipy.ndimage import uniform_filter1d
 
-    from analysis.calibrate import moving_average
+    from cloakrcs.calibrate import moving_average
 
     x = np.random.default_rng(0).random((3, 57))
     for width in (1, 2, 5, 8, 57):

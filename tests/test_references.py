@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
-from analysis.commands import reference as reference_cmd
-from analysis.constants import C0
-from analysis.errors import InputError
-from analysis.references import (
+from cloakrcs.commands import reference as reference_cmd
+from cloakrcs.constants import C0
+from cloakrcs.errors import InputError
+from cloakrcs.references import (
     cylinder2d_amplitude,
     cylinder2d_echo_width,
     cylinder_amplitude,
@@ -28,7 +28,7 @@ from analysis.references import (
     theory_is_null,
     trihedral_amplitude,
 )
-from analysis.spans import parse_span
+from cloakrcs.spans import parse_span
 
 
 def freq_for_ka(ka, a):
@@ -74,7 +74,7 @@ def test_sphere_resonance_peak_near_ka_1():
 
 
 def test_sphere_echoes_in_time_domain():
-    # signal model exp(+j w t): A(f) exp(+j 2 k a) is an echo 2a/c0 early (DESIGN section 2);
+    # signal model exp(+j w t): A(f) exp(+j 2 k a) is an echo 2a/c0 early (README, Signal model);
     # specular point at -2a/c0, creeping wave about +pi a/c0 after the centre (Knott,
     # Shaeffer & Tuley, creeping waves; from memory)
     a = 0.1

@@ -18,8 +18,8 @@ import pytest
 from bs4 import BeautifulSoup
 
 from conftest import TINY_MANIFEST, point_echo, skip_or_fail, write_s1p
-from analysis import figures, report
-from analysis.pipeline import run_process
+from cloakrcs import figures, report
+from cloakrcs.pipeline import run_process
 
 CHECK_TARGET = """
 [[target]]
@@ -208,7 +208,7 @@ def test_render_without_campaign_omits_range_profile_with_a_note(run_dir):
 
 
 def test_reduction_wording_of_bounds():
-    # DESIGN.md 3.7: subject at the floor -> lower bound, baseline -> upper, both -> undetermined
+    # README, The processing chain, step 6: subject at the floor -> lower bound, baseline -> upper, both -> undetermined
     assert report.reduction_text(12.345, "lower") == "at least 12.35"  # Python round-half-even prints 12.35 here
     assert report.reduction_text(3.0, "upper") == "at most 3.00"
     assert report.reduction_text(3.0, "undetermined") == "undetermined"
@@ -245,7 +245,7 @@ def test_figures_decimate_what_they_send(run_dir):
 
 
 def test_report_command_from_the_store(run_dir, tmp_path):
-    from analysis.cli import main
+    from cloakrcs.cli import main
 
     root, _ = run_dir
     url = f"sqlite:///{tmp_path / 'runs.db'}"

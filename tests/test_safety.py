@@ -1,4 +1,4 @@
-"""RF-exposure estimator (analysis.safety) against the far-field formula and ICNIRP 2020 Table 5."""
+"""RF-exposure estimator (cloakrcs.safety) against the far-field formula and ICNIRP 2020 Table 5."""
 
 from __future__ import annotations
 
@@ -7,8 +7,8 @@ import math
 import pytest
 from hypothesis import given, strategies as st
 
-from analysis.errors import InputError
-from analysis.safety import (distance_for_level_m, estimate_exposure, power_density_w_m2,
+from cloakrcs.errors import InputError
+from cloakrcs.safety import (distance_for_level_m, estimate_exposure, power_density_w_m2,
                              reference_level_w_m2)
 
 
@@ -30,7 +30,7 @@ def test_inverse_square_law(p, g, r):
 
 
 @pytest.mark.parametrize("f_hz, public, worker", [
-    # ICNIRP 2020 guidelines, Table 5 (whole body, far field; values from memory as in DESIGN.md section 6):
+    # ICNIRP 2020 guidelines, Table 5 (whole body, far field; values from memory as in README, RF safety):
     (100e6, 2.0, 10.0),       # 30-400 MHz: 2 and 10 W/m^2
     (900e6, 4.5, 22.5),       # 400-2000 MHz: f_MHz/200 and f_MHz/40
     (1.8e9, 9.0, 45.0),

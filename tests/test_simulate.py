@@ -1,4 +1,4 @@
-"""Chamber simulator (analysis.simulate) and the sample campaign (sample_measurements/)."""
+"""Chamber simulator (cloakrcs.simulate) and the sample campaign (sample_measurements/)."""
 
 from __future__ import annotations
 
@@ -10,13 +10,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis import references
-from analysis.commands import simulate as simulate_command
-from analysis.constants import C0
-from analysis.errors import InputError
-from analysis.simulate import (format_angle, load_simulation_config, model_amplitude, normalise_config,
+from cloakrcs import references
+from cloakrcs.commands import simulate as simulate_command
+from cloakrcs.constants import C0
+from cloakrcs.errors import InputError
+from cloakrcs.simulate import (format_angle, load_simulation_config, model_amplitude, normalise_config,
                                simulate_campaign)
-from analysis.touchstone import read_touchstone
+from cloakrcs.touchstone import read_touchstone
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_measurements"
 
@@ -78,7 +78,7 @@ def test_same_seed_gives_identical_bytes_and_another_seed_differs(tmp_path):
 
 
 def test_ideal_chamber_gives_the_signal_model_exactly(tmp_path):
-    # DESIGN.md section 2 with G = 1, C = c_i = n = 0: S = A exp(-j 2 k (R + offset)) / R^2
+    # README, Signal model with G = 1, C = c_i = n = 0: S = A exp(-j 2 k (R + offset)) / R^2
     res = simulate_campaign(ideal_config(), tmp_path)
     f = res.frequency_hz
     k = 2 * np.pi * f / C0
@@ -149,7 +149,7 @@ def test_two_port_setup_carries_the_echo_in_s21(tmp_path):
 
 def test_manifest_is_read_by_the_campaign_loader(tmp_path):
     simulate_campaign(small_config(), tmp_path)
-    from analysis.campaign import inspect_campaign
+    from cloakrcs.campaign import inspect_campaign
     campaign, problems, warnings = inspect_campaign(tmp_path / "manifest.toml")
     assert not problems, problems
     assert campaign.cube("bare").data.sizes["angle"] == 3
@@ -214,7 +214,7 @@ def test_sample_campaign_layout_and_size():
     assert sum(p.stat().st_size for p in files) < 15e6
     f = np.linspace(cfg["sweep"]["start_ghz"], cfg["sweep"]["stop_ghz"], cfg["sweep"]["points"]) * 1e9
     assert f.size >= 201
-    unamb = C0 / (2 * (f[1] - f[0]))  # c0 / (2 df), DESIGN.md 3.3
+    unamb = C0 / (2 * (f[1] - f[0]))  # c0 / (2 df), README, The processing chain, step 2
     assert unamb >= 2 * cfg["chamber"]["range_m"]
     names = {t["name"]: t for t in cfg["target"]}
     assert sum(t["role"] == "subject" and "revision" in t for t in cfg["target"]) >= 3
@@ -234,7 +234,7 @@ def test_sample_truth_matches_a_fresh_evaluation_of_the_model():
         assert abs(10 * np.log10(abs(amp) ** 2) - row.rcs_dbsm) < 6e-4
     red = pd.read_csv(SAMPLE / "truth" / "reduction.csv")
     assert list(red.columns) == ["subject", "baseline", "polarization", "angle_deg", "frequency_hz", "reduction_db"]
-    # the band-averaged reduction (DESIGN.md 3.8: linear sums over band and angles, then dB) from rcs.csv
+    # the band-averaged reduction (README, The processing chain, step 6: linear sums over band and angles, then dB) from rcs.csv
     metrics = json.loads((SAMPLE / "truth" / "metrics.json").read_text())
     lo, hi = (x * 1e9 for x in metrics["band_ghz"])
     band = rcs[(rcs.frequency_hz >= lo - 1) & (rcs.frequency_hz <= hi + 1)]

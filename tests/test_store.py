@@ -21,13 +21,13 @@ from conftest import point_echo, skip_or_fail, write_s1p
 from sqlalchemy import create_engine, select, text
 from sqlalchemy.engine import make_url
 
-from analysis import store
-from analysis import store_schema as S
-from analysis.campaign import load_campaign
-from analysis.cli import main
-from analysis.errors import InputError
-from analysis.outputs import json_ready
-from analysis.process import ProcessSettings, process_campaign
+from cloakrcs import store
+from cloakrcs import store_schema as S
+from cloakrcs.campaign import load_campaign
+from cloakrcs.cli import main
+from cloakrcs.errors import InputError
+from cloakrcs.outputs import json_ready
+from cloakrcs.process import ProcessSettings, process_campaign
 
 FREQ = np.linspace(8e9, 12e9, 201)
 
@@ -211,7 +211,7 @@ def test_failure_partway_leaves_store_exactly_as_before(store_url, work, tmp_pat
     assert reached and reached[0] is not None  # rows had really been written inside the transaction
     assert snapshot(store_url) == before
     # the pipeline writes no output when recording fails
-    from analysis.pipeline import run_process
+    from cloakrcs.pipeline import run_process
 
     with pytest.raises(RuntimeError):
         run_process(other, tmp_path / "out", store_url=store_url, report=False, campaign=c2)

@@ -1,4 +1,4 @@
-"""Range profiles, windows and time gating (analysis.timedomain).
+"""Range profiles, windows and time gating (cloakrcs.timedomain).
 
 References: the band-pass radar relations c0/(2B) and c0/(2df) (common practice; e.g. Knott,
 Radar Cross Section Measurements, ch. on range gating, from memory), c0 from the SI definition,
@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 import scipy.signal.windows as sw
 
-from analysis.errors import InputError
-from analysis.timedomain import (
+from cloakrcs.errors import InputError
+from cloakrcs.timedomain import (
     find_echo_range, frequency_window, gate_distortion, gate_far_edge_ok, gate_noise_gain, gate_shape, range_profile,
     transform_length,
     resolution_m, time_gate, unambiguous_range_m, uniform_step_hz, valid_band_mask,
@@ -179,7 +179,7 @@ def test_gate_keeps_target_and_removes_30db_clutter_kaiser():
 
 
 def test_sphere_like_pair_inside_the_flat_top_is_kept():
-    # DESIGN 2: specular echo at R - a, creeping wave at about R + pi a / 2 (a = 0.1 m)
+    # README, Signal model: specular echo at R - a, creeping wave at about R + pi a / 2 (a = 0.1 m)
     a = 0.1
     s = echo(TARGET - a) + echo(TARGET + np.pi * a / 2, 0.3)
     for span in (1.0, 1.5):
@@ -257,7 +257,7 @@ def test_agrees_with_skrf_default_kaiser_gate_where_it_must():
     skrf_net, _ = _skrf_gate(_scene(), center=2 * TARGET / C0_SI, span=2 * span / C0_SI)
     order = np.argsort(t % (1 / 10e6))
     np.testing.assert_allclose(np.abs(p), np.abs(skrf_net.s_time[:, 0, 0])[order], rtol=1e-9, atol=1e-12)
-    # (5) the design difference (DESIGN 3.4): an echo 0.3 m off centre, inside our flat top,
+    # (5) the design difference (README, The processing chain, step 2): an echo 0.3 m off centre, inside our flat top,
     #     is attenuated ~8.8 dB by skrf's Kaiser gate and kept by ours (mid-band)
     _, ref = _skrf_gate(echo(TARGET + 0.3), center=2 * TARGET / C0_SI, span=2 * span / C0_SI)
     ours = time_gate(F, echo(TARGET + 0.3), TARGET, span)

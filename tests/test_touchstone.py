@@ -12,8 +12,8 @@ import pytest
 import skrf
 from skrf.network import s2y, s2z
 
-from analysis.errors import InputError
-from analysis.touchstone import (
+from cloakrcs.errors import InputError
+from cloakrcs.touchstone import (
     Touchstone,
     file_sha256,
     parameter_index,

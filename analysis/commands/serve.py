@@ -20,7 +20,7 @@ def register(sub) -> None:
 def run(args) -> int:
     if not 0 < args.port < 65536:
         raise InputError(f"port must be 1-65535, got {args.port}")
-    from dashboard.app import create_app
+    from ..dashboard.app import create_app
 
     app = create_app(args.store)
     url = app.views.source.url

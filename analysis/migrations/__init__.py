@@ -1,1 +1,1 @@
-"""Alembic environment of the results store (run programmatically by analysis.store.open_store)."""
+"""Alembic environment of the results store (run programmatically by cloakrcs.store.open_store)."""

@@ -1,13 +1,13 @@
-"""Alembic environment: migrations run on the connection that analysis.store hands over.
+"""Alembic environment: migrations run on the connection that cloakrcs.store hands over.
 
-``analysis.store.open_store`` calls ``alembic.command.upgrade(config, "head")`` with
+``cloakrcs.store.open_store`` calls ``alembic.command.upgrade(config, "head")`` with
 ``config.attributes["connection"]`` set; nothing here reads an ini file or configures logging.
 """
 
 from alembic import context
 from sqlalchemy import text
 
-from analysis.store_schema import Base
+from cloakrcs.store_schema import Base  # absolute: Alembic loads this file as a script
 
 ADVISORY_LOCK_KEY = 0x636C6F616B  # PostgreSQL: one migrator at a time
 

@@ -1,8 +1,8 @@
 """Server-side latency of every dashboard callback: the sample campaign and a 360 x 1601 x 2 one.
 
-    .venv/bin/python benchmarks/bench_dashboard.py [--repeat 5] [--big-dir DIR] [--no-big]
+    .venv/bin/python tests/benchmarks/bench_dashboard.py [--repeat 5] [--big-dir DIR] [--no-big]
 
-The large campaign is simulated (analysis.simulate) from the sample config with a 1-degree turn
+The large campaign is simulated (cloakrcs.simulate) from the sample config with a 1-degree turn
 and 1601 points, keeping the bare target and one cloaked revision, into ``--big-dir`` (reused
 when it is already there). Each callback is timed cold (first call) and as the median of
 ``--repeat`` further calls, including the JSON serialisation Dash does before sending.
@@ -18,16 +18,16 @@ import tempfile
 import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from plotly.io.json import to_json_plotly  # noqa: E402
 
-from analysis.campaign import load_campaign  # noqa: E402
-from analysis.process import process_campaign  # noqa: E402
-from analysis.simulate import load_simulation_config, simulate_campaign  # noqa: E402
-from dashboard.callbacks import Views  # noqa: E402
-from dashboard.data import MemorySource  # noqa: E402
+from cloakrcs.campaign import load_campaign  # noqa: E402
+from cloakrcs.process import process_campaign  # noqa: E402
+from cloakrcs.simulate import load_simulation_config, simulate_campaign  # noqa: E402
+from cloakrcs.dashboard.callbacks import Views  # noqa: E402
+from cloakrcs.dashboard.data import MemorySource  # noqa: E402
 
 
 def big_campaign(folder: Path) -> Path:

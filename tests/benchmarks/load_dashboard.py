@@ -1,7 +1,7 @@
 """The dashboard under load: simulated browsers on loopback switching views, and hostile uploads.
 
-    .venv/bin/python benchmarks/load_dashboard.py [--users 20] [--seconds 60] [--no-attacks]
-    .venv/bin/python benchmarks/load_dashboard.py --url http://127.0.0.1:8050 --store sqlite:///PATH
+    .venv/bin/python tests/benchmarks/load_dashboard.py [--users 20] [--seconds 60] [--no-attacks]
+    .venv/bin/python tests/benchmarks/load_dashboard.py --url http://127.0.0.1:8050 --store sqlite:///PATH
 
 By default it records the sample campaign in a temporary SQLite store and serves the real app on
 a threaded werkzeug server at 127.0.0.1:<free port> in this process (so the clients share its
@@ -23,7 +23,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
@@ -61,7 +61,7 @@ def main(argv=None) -> int:
             ap.error(f"--url must be http://{LOOPBACK}:PORT (loopback only)")
         if not (args.store or "").startswith("sqlite:///"):
             ap.error("--url needs --store sqlite:///PATH, the store of that dashboard")
-        from dashboard.data import upload_root_for
+        from cloakrcs.dashboard.data import upload_root_for
 
         folder = Path(args.store[len("sqlite:///"):]).expanduser().resolve().parent
         report = run_load(args.url.rstrip("/"), folder, upload_root_for(args.store), args.users, args.seconds,

@@ -1,6 +1,6 @@
 """Touchstone read speed: our reader (serial and read_many) against a loop of skrf.Network.
 
-A script, not a test: ``.venv/bin/python benchmarks/bench_touchstone.py [n_files] [n_points]``.
+A script, not a test: ``.venv/bin/python tests/benchmarks/bench_touchstone.py [n_files] [n_points]``.
 Writes n_files two-port .s2p files of n_points (default 360 x 1601) with write_touchstone in
 a temporary folder, then prints the median of 5 runs of each reader and the ratios.
 """
@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy as np
 import skrf
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from analysis.touchstone import read_many, read_touchstone, write_touchstone  # noqa: E402
+from cloakrcs.touchstone import read_many, read_touchstone, write_touchstone  # noqa: E402
 
 RUNS = 5
 

@@ -2,7 +2,7 @@
 
 A script, not a test::
 
-    .venv/bin/python benchmarks/bench_process.py [--sizes 90x401,180x801,360x1601] [--runs 3]
+    .venv/bin/python tests/benchmarks/bench_process.py [--sizes 90x401,180x801,360x1601] [--runs 3]
 
 For each size (angles x points) it simulates (once, cached in the temp folder keyed by size) a
 two-port campaign of 4 targets x 2 polarizations x every angle (background, sphere reference,
@@ -27,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 C0 = 299_792_458.0
@@ -74,7 +74,7 @@ def campaign_config(n_angles: int, n_points: int) -> dict:
 
 def ensure_campaign(n_angles: int, n_points: int) -> Path:
     """The cached campaign of this size (simulated on first use); returns its manifest path."""
-    from analysis.simulate import simulate_campaign
+    from cloakrcs.simulate import simulate_campaign
 
     folder = CACHE / f"a{n_angles}_p{n_points}"
     done = folder / ".complete"
@@ -113,7 +113,7 @@ def plain_process(nets: dict, out_dir) -> None:
     band-pass), background subtraction, sphere substitution calibration (Mie), pandas CSVs."""
     import pandas as pd
 
-    from analysis.references import sphere_amplitude
+    from cloakrcs.references import sphere_amplitude
 
     center_ns = 2 * (RANGE_M + OFFSET_M) / C0 * 1e9
     span_ns = 2 * SPAN_M / C0 * 1e9
@@ -195,13 +195,13 @@ def peak_tree_rss_mb(cmd: list[str], interval_s: float = 0.01) -> float:
     return peak / 2**20
 
 
-BASELINE_IMPORTS = ("import analysis.cli, analysis.pipeline, analysis.process, analysis.campaign, "
-                    "analysis.outputs, analysis.store, analysis.report, skrf, pandas")
+BASELINE_IMPORTS = ("import cloakrcs.cli, cloakrcs.pipeline, cloakrcs.process, cloakrcs.campaign, "
+                    "cloakrcs.outputs, cloakrcs.store, cloakrcs.report, skrf, pandas")
 
 
 def measure(n_angles: int, n_points: int, runs: int) -> dict:
-    from analysis.campaign import load_campaign
-    from analysis.process import process_campaign
+    from cloakrcs.campaign import load_campaign
+    from cloakrcs.process import process_campaign
 
     manifest = ensure_campaign(n_angles, n_points)
     n_files = len(list((manifest.parent / "raw").glob("*.s2p")))

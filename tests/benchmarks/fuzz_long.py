@@ -1,10 +1,10 @@
 """Several-minute local fuzz run of the Touchstone reader, the manifest parser and the campaign loader.
 
-    .venv/bin/python benchmarks/fuzz_long.py --minutes 3 [--seed 1]
+    .venv/bin/python tests/benchmarks/fuzz_long.py --minutes 3 [--seed 1]
 
 Inputs: the files of tests/corpus mutated (bit flips, truncations, insertions of Touchstone and
 TOML tokens, random bytes) and plain random bytes. Any exception other than
-``analysis.errors.InputError``, or an InputError of more than one line, is a failure: it is
+``cloakrcs.errors.InputError``, or an InputError of more than one line, is a failure: it is
 printed with the input saved under the work folder. Prints how many inputs were tried.
 """
 
@@ -20,14 +20,14 @@ import traceback
 import warnings
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from analysis.campaign import load_campaign  # noqa: E402
-from analysis.errors import InputError  # noqa: E402
-from analysis.manifest import parse_manifest  # noqa: E402
-from analysis.touchstone import read_touchstone  # noqa: E402
+from cloakrcs.campaign import load_campaign  # noqa: E402
+from cloakrcs.errors import InputError  # noqa: E402
+from cloakrcs.manifest import parse_manifest  # noqa: E402
+from cloakrcs.touchstone import read_touchstone  # noqa: E402
 from test_fuzz import SEEDS_MANIFEST, SEEDS_TS, TOKENS  # noqa: E402
 
 
