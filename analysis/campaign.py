@@ -23,7 +23,7 @@ import xarray as xr
 
 from .constants import C0
 from .errors import InputError
-from .manifest import CO_POL, CROSS_POL, Manifest, TargetSpec, parse_manifest, shape_size_m
+from .manifest import CO_POL, CROSS_POL, Manifest, TargetSpec, parse_manifest, shape_size_m, target_extent_m
 
 FIELD_REGEX = {
     "pol": r"(?P<pol>[HhVv][HhVv])",
@@ -279,7 +279,6 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
         if len(other) != len(freq) or not np.allclose(other, freq, rtol=1e-9, atol=0):
             problem(InputError(f"target {name}: frequency grid ({_grid_description(other)}) differs from target "
                                f"{names[0]}'s ({_grid_description(freq)})", cubes[name].files.flat[0]))
-    unamb = timedomain.unambiguous_range_m(freq)
     f_top = freq[-1]
     lam_min = C0 / f_top
     references_by_pol: dict[str, list[str]] = {}
@@ -296,17 +295,20 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
                                        mpath, spec.line))
             center = manifest.gate_center_m(spec)
             span = manifest.gate_span_m(spec)
-            if center + span / 2 >= unamb:
-                problem(InputError(f"target {name}: gate far edge {center + span / 2:.3f} m (centre {center:.3f} m + "
-                                   f"span/2) lies past the unambiguous range {unamb:.3f} m = c0/(2 df): it would alias",
-                                   mpath, spec.line))
-            size = spec.size_m
+            alias = timedomain.gate_alias_problem(freq, center, span, manifest.gate.edge_fraction)
+            if alias:
+                problem(InputError(f"target {name}: {alias}", mpath, spec.line))
+            size = target_extent_m(spec)  # size_m and the shape's own dimensions: the largest
             if size is not None:
                 far = 2 * size ** 2 / lam_min
                 if spec.range_m < far:
                     warn(str(InputError(f"target {name}: range {spec.range_m:g} m is shorter than the far field "
                                         f"distance 2 D^2/lambda = {far:.2f} m (D = {size:g} m at {f_top / 1e9:.3g} GHz)",
                                         mpath, spec.line)))
+                top = flat_top_problem(size, spec.range_m + manifest.chamber.offset_m, center, span,
+                                       manifest.gate.edge_fraction)
+                if top:
+                    warn(str(InputError(f"target {name}: {top}", mpath, spec.line)))
         if spec.role == "reference" or spec.is_check:
             if spec.shape is None:
                 continue
@@ -370,6 +372,24 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
     if manifest.chamber.bistatic_deg > BISTATIC_WARN_DEG:
         warn(str(InputError(f"bistatic angle {manifest.chamber.bistatic_deg:g} deg exceeds {BISTATIC_WARN_DEG:g} deg: "
                             f"monostatic references are then approximate", mpath)))
+
+
+def flat_top_problem(extent_m: float, echo_center_m: float, center_m: float, span_m: float,
+                     edge_fraction: float) -> str | None:
+    """Why a target of largest dimension ``extent_m`` (m), centred at ``echo_center_m`` on the
+    range axis, is not held by the gate's flat top, or None when it is.
+
+    The flat top is centre +/- span (1 - edge_fraction) / 2 (README, The processing chain,
+    step 2); the target may reach extent/2 either side of its centre down-range. Echoes on the
+    soft edges are attenuated, so the calibration of such a target is biased low.
+    """
+    half_top = 0.5 * span_m * (1.0 - edge_fraction)
+    lo, hi = echo_center_m - extent_m / 2, echo_center_m + extent_m / 2
+    if lo >= center_m - half_top - 1e-9 and hi <= center_m + half_top + 1e-9:
+        return None
+    return (f"its extent {extent_m:g} m ({lo:.3f}-{hi:.3f} m down-range) exceeds the gate's flat top "
+            f"[{center_m - half_top:.3f}, {center_m + half_top:.3f}] m (span {span_m:g} m minus its soft edges): "
+            f"echoes on the edges are attenuated; widen the gate span")
 
 
 def _params(cube: TargetCube) -> str:

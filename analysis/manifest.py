@@ -174,6 +174,13 @@ def shape_size_m(shape: dict[str, Any] | None) -> float | None:
     return None
 
 
+def target_extent_m(spec: TargetSpec) -> float | None:
+    """A target's largest dimension (m): the larger of ``size_m`` and its shape's own largest
+    dimension (:func:`shape_size_m`), or None when neither is known."""
+    sizes = [s for s in (spec.size_m, shape_size_m(spec.shape)) if s is not None]
+    return max(sizes) if sizes else None
+
+
 def _target_lines(text: str) -> list[int]:
     """1-based line numbers of each [[target]] header, in order."""
     return [i + 1 for i, line in enumerate(text.splitlines()) if re.match(r"\s*\[\[\s*target\s*\]\]", line)]

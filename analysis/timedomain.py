@@ -169,10 +169,9 @@ def gate_shape(range_m, center_m, span_m, edge_m, period_m=None) -> np.ndarray:
 def _gate_and_distortion(frequency_hz, s, center_m, span_m, window, kaiser_beta, pad_factor, edge_fraction):
     f, s, df, n, m = _checked(frequency_hz, s, pad_factor)
     _check_gate(span_m, edge_fraction)
-    if not gate_far_edge_ok(f, center_m, span_m):
-        raise InputError(
-            f"gate far edge {center_m + span_m / 2:.4g} m (centre {center_m:.4g} m + span/2) lies past the "
-            f"unambiguous range {C0 / (2 * df):.4g} m = c0/(2 df) of the {df / 1e6:.6g} MHz step: it would alias")
+    problem = gate_alias_problem(f, center_m, span_m, edge_fraction)
+    if problem:
+        raise InputError(problem)
     w = frequency_window(window, n, kaiser_beta)
     gate = gate_shape(_range_axis(df, m), center_m, span_m, edge_fraction * span_m)
     phase = np.exp(-2j * np.pi * f * (2.0 * center_m / C0))  # exp(-j 2 k r_centre)
@@ -251,9 +250,33 @@ def valid_band_mask(frequency_hz, span_m, trim_hz=None) -> np.ndarray:
     return mask
 
 
-def gate_far_edge_ok(frequency_hz, center_m, span_m) -> bool:
-    """True when the gate's far edge, centre + span/2 (m), lies inside the unambiguous range."""
-    return bool(center_m + span_m / 2.0 < unambiguous_range_m(frequency_hz))
+def gate_far_edge_ok(frequency_hz, center_m, span_m, edge_fraction=DEFAULT_EDGE_FRACTION) -> bool:
+    """True when the gate, soft edges included, neither aliases nor wraps onto itself
+    (see :func:`gate_alias_problem`)."""
+    return gate_alias_problem(frequency_hz, center_m, span_m, edge_fraction) is None
+
+
+def gate_alias_problem(frequency_hz, center_m, span_m, edge_fraction=DEFAULT_EDGE_FRACTION) -> str | None:
+    """Why a gate would alias, as one line, or None when it does not.
+
+    The gate reaches (span + edge)/2 either side of its centre, edge = edge_fraction * span
+    (the raised-cosine edges end there, past the -6 dB points at span/2). It aliases when
+    its full width, span + edge, is not shorter than the unambiguous range c0/(2 df) (the
+    circular range axis is then covered entirely, so the gate keeps everything and gates
+    nothing), or when its far end, centre + (span + edge)/2, lies past that range.
+    """
+    df = uniform_step_hz(frequency_hz)
+    unamb = C0 / (2.0 * df)
+    half = 0.5 * span_m * (1.0 + edge_fraction)
+    if 2 * half >= unamb:
+        return (f"gate span {span_m:.4g} m plus its soft edges ({2 * half:.4g} m in all) is not shorter than the "
+                f"unambiguous range {unamb:.4g} m = c0/(2 df) of the {df / 1e6:.6g} MHz step: it would gate "
+                f"nothing (shorten the span or use a finer frequency step)")
+    if center_m + half >= unamb:
+        return (f"gate far edge {center_m + half:.4g} m (centre {center_m:.4g} m + span/2 + soft edge/2) lies "
+                f"past the unambiguous range {unamb:.4g} m = c0/(2 df) of the {df / 1e6:.6g} MHz step: "
+                f"it would alias")
+    return None
 
 
 def find_echo_range(frequency_hz, s, window="kaiser", kaiser_beta=6.0, pad_factor=8, search=None) -> float:

@@ -280,8 +280,10 @@ def test_valid_band_mask_trims_one_inverse_gate_duration():
 
 def test_gate_far_edge_against_unambiguous_range():
     ru = 14.9896229
-    assert gate_far_edge_ok(F, ru - 0.51, 1.0)
-    assert not gate_far_edge_ok(F, ru - 0.49, 1.0)
+    # a hard-edged gate ends at centre + span/2; soft edges (20 % of the span each) reach span/2 + 0.1 further
+    assert gate_far_edge_ok(F, ru - 0.51, 1.0, edge_fraction=0.0)
+    assert not gate_far_edge_ok(F, ru - 0.49, 1.0, edge_fraction=0.0)
+    assert gate_far_edge_ok(F, ru - 0.61, 1.0) and not gate_far_edge_ok(F, ru - 0.59, 1.0)
     with pytest.raises(InputError, match="unambiguous range"):
         time_gate(F, echo(14.6), 14.6, 1.0)
 
