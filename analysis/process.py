@@ -16,12 +16,14 @@ import pandas as pd
 import xarray as xr
 
 from . import __version__, calibrate, metrics, references, timedomain
-from .campaign import Campaign, TargetCube, wrap_angle_deg
+from .campaign import Campaign, TargetCube, flat_top_problem, wrap_angle_deg
 from .constants import C0
 from .errors import InputError
-from .manifest import TargetSpec
+from .manifest import TargetSpec, target_extent_m
 
 ANGLE_INDEPENDENT = ("sphere",)
+SPECULAR_MISS_DEG = 1e-6  # an aspect-dependent target's nearest sweep further than this from specular is warned of
+CENTRING_WARN_DB = 0.1  # warn of an off-axis reference when a plain angle average would lose more than this
 CHECK_DYNAMIC_DB = 20.0  # check-target error is scored where theory is within this of its peak
 
 
@@ -206,7 +208,7 @@ def estimate_offset_m(campaign: Campaign, settings: ProcessSettings) -> tuple[fl
     search = (0.25 * ref.range_m, unamb * 0.98)
     peak = timedomain.find_echo_range(f, d.reshape(-1, d.shape[-1]), gate["window"], gate["kaiser_beta"],
                                       pad_factor=8, search=search)
-    lead = ref.shape["radius_m"] if ref.shape and ref.shape["shape"] == "sphere" else 0.0
+    lead = references.leading_surface_m(ref.shape) if ref.shape else 0.0  # echo peak at R - lead
     return peak + lead - ref.range_m, ref.name
 
 
@@ -231,6 +233,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         if cube.spec.role == "background":
             continue
         center, span = _gate_of(campaign, cube.spec, settings, offset_est)
+        _flat_top_warning(campaign, cube.spec, center, span, offset_est, warnings)
         d, bg = _subtracted(campaign, cube, settings, gate, center, span)
         if d.shape[2] > 1:
             g_all = timedomain.time_gate(f, d, center, span, **gate)
@@ -286,6 +289,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     tick("calibrated RCS")
 
     checks = _checks(campaign, targets, valid, settings)
+    _check_specular_warnings(campaign, f[valid], warnings)
     floor_summary = {}
     for pol in ("HH", "VV", "HV", "VH"):
         vals = [10 * np.log10(t.floor.sel(polarization=pol).values[valid]) for t in targets.values()
@@ -345,19 +349,33 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
             if pol in factors:
                 continue  # first reference listed for a channel calibrates it
             ip = cube.polarizations.index(pol)
-            if spec.shape["shape"] in ANGLE_INDEPENDENT or (spec.shape["shape"] == "cylinder"
-                                                             and spec.shape.get("orientation") == "upright"):
-                d_ref = g["g"][ip].mean(axis=0)
-                how = f"average of {len(cube.angles_deg)} angle(s)"
+            centring = {"off_axis_m": None, "shift_spread_m": None}
+            if _angle_independent(spec.shape):
+                aspect = 0.0
+                if len(cube.angles_deg) > 1:  # README, The processing chain, step 3: aligned, then averaged
+                    d_ref, shifts = calibrate.aligned_angle_mean(f, g["g"][ip], spec.range_m,
+                                                                 _fit_band(f, g["span"]))
+                    centring = {"off_axis_m": calibrate.off_axis_distance_m(cube.angles_deg, shifts),
+                                "shift_spread_m": float(np.ptp(shifts))}
+                    _centring_warning(spec, pol, f, centring, warnings)
+                    how = f"average of {len(cube.angles_deg)} angles, each aligned on its echo delay"
+                else:
+                    d_ref = g["g"][ip, 0]
+                    how = "single angle"
             else:
-                ia = int(np.argmin(np.abs(wrap_angle_deg(cube.angles_deg - spec.specular_deg))))
+                miss = wrap_angle_deg(cube.angles_deg - spec.specular_deg)
+                ia = int(np.argmin(np.abs(miss)))
+                aspect = float(miss[ia])  # theory at the measured angle (README, step 3)
                 d_ref = g["g"][ip, ia]
-                how = f"sweep at {cube.angles_deg[ia]:g} deg (specular {spec.specular_deg:g} deg)"
-            theory = references.reference_amplitude(spec.shape, f, np.array([0.0]), pol)[0]
+                how = (f"sweep at {cube.angles_deg[ia]:g} deg (specular {spec.specular_deg:g} deg), "
+                       f"theory at {aspect:g} deg from specular")
+                if abs(aspect) > SPECULAR_MISS_DEG:
+                    warnings.append(_specular_miss_warning(spec, pol, f, aspect, "calibrated against"))
+            theory = references.reference_amplitude(spec.shape, f, np.array([aspect]), pol)[0]
             factors[pol] = calibrate.calibration_factor(f, d_ref, theory, spec.range_m)
             used.append(pol)
             info.append({"target": spec.name, "polarization": pol, "shape": spec.shape, "method": how,
-                         "approximate": False})
+                         "approximate": False, "aspect_deg": aspect, **centring})
     subject_pols = {p for g in gated.values() for p in g["cube"].polarizations}
     for pol in sorted(subject_pols - set(factors)):
         if pol in ("HV", "VH") and "HH" in factors and "VV" in factors:
@@ -368,6 +386,76 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
         else:
             raise InputError(f"no reference calibrates {pol}", campaign.manifest.path)
     return factors, info
+
+
+def _flat_top_warning(campaign: Campaign, spec: TargetSpec, center: float, span: float, offset_est, warnings):
+    """Warn when a gate that differs from the manifest's (an override, --auto-gate) does not hold the
+    target's extent in its flat top (the manifest's own gates are checked when the campaign loads)."""
+    m = campaign.manifest
+    extent = target_extent_m(spec)
+    if extent is None or (center, span) == (m.gate_center_m(spec), m.gate_span_m(spec)):
+        return
+    echo = spec.range_m + (m.chamber.offset_m if offset_est is None else offset_est)
+    problem = flat_top_problem(extent, echo, center, span, m.gate.edge_fraction)
+    if problem:
+        warnings.append(f"target {spec.name}: {problem}")
+
+
+def _check_specular_warnings(campaign: Campaign, f, warnings: list[str]) -> None:
+    """Warn for each aspect-dependent check target whose sweeps miss its specular angle (its error is
+    then scored against theory at the measured angles only)."""
+    for spec in campaign.manifest.targets:
+        if not spec.is_check or _angle_independent(spec.shape) or spec.name not in campaign.cubes:
+            continue
+        cube = campaign.cube(spec.name)
+        miss = wrap_angle_deg(cube.angles_deg - spec.specular_deg)
+        aspect = float(miss[int(np.argmin(np.abs(miss)))])
+        pol = next((p for p in cube.polarizations if not references.theory_is_null(spec.shape, p)), None)
+        if pol is not None and abs(aspect) > SPECULAR_MISS_DEG:
+            warnings.append(_specular_miss_warning(spec, pol, f, aspect, "compared with"))
+
+
+def _fit_band(f, span: float):
+    """The band a delay fit uses: inside one inverse gate duration of each edge (None if that leaves nothing)."""
+    try:
+        return timedomain.valid_band_mask(f, span)
+    except InputError:
+        return None
+
+
+def _angle_independent(shape: dict) -> bool:
+    """A reference whose theory does not depend on the turntable angle (sphere, upright cylinder)."""
+    return shape["shape"] in ANGLE_INDEPENDENT or (shape["shape"] == "cylinder"
+                                                   and shape.get("orientation") == "upright")
+
+
+def _specular_miss_warning(spec: TargetSpec, pol: str, f, aspect_deg: float, what: str) -> str:
+    """The warning for an aspect-dependent target whose sweeps miss its specular angle."""
+    try:
+        peak = np.abs(references.reference_amplitude(spec.shape, f[-1:], np.array([0.0, aspect_deg]), pol)[:, 0]) ** 2
+        drop = f", {10 * np.log10(peak[0] / max(peak[1], 1e-300)):.2f} dB below the specular peak at {f[-1] / 1e9:.4g} GHz"
+    except InputError:  # a table that does not reach specular
+        drop = ""
+    return (f"{spec.name} {pol}: no sweep at its specular angle {spec.specular_deg:g} deg; the nearest is "
+            f"{aspect_deg:+g} deg off it and is {what} the theory there{drop}: an error in the angle now biases "
+            f"the result; measure at specular")
+
+
+def _centring_warning(spec: TargetSpec, pol: str, f, centring: dict, warnings: list[str]) -> None:
+    """Warn when the reference sits far enough off the turntable axis that a plain average would
+    have lost more than CENTRING_WARN_DB: |J0(2 k delta)| at the top frequency."""
+    from scipy.special import j0
+
+    delta = centring["off_axis_m"]
+    known = delta is not None
+    if not known:
+        delta = 0.5 * centring["shift_spread_m"]  # at least this far off
+    loss = -20 * np.log10(max(abs(float(j0(2 * 2 * np.pi * f[-1] / C0 * delta))), 1e-30))
+    if loss > CENTRING_WARN_DB:
+        where = f"{1e3 * delta:.2f} mm" if known else f"at least {1e3 * delta:.2f} mm"
+        warnings.append(f"{spec.name} {pol}: centring check: the reference is {where} off the turntable axis (from "
+                        f"its echo delay per angle); its sweeps were aligned before averaging (a plain average would "
+                        f"lose {loss:.2f} dB at {f[-1] / 1e9:.4g} GHz); recentre it for the next campaign")
 
 
 def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, settings: ProcessSettings) -> list[dict]:

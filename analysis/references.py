@@ -475,6 +475,22 @@ def reference_amplitude(spec: Mapping, frequency_hz, angle_deg, polarization, ba
     return amp if co else np.zeros_like(amp)
 
 
+def leading_surface_m(spec: Mapping) -> float:
+    """Distance (m) from a shape's reference point to the surface nearest the antenna, where its
+    strongest echo comes from (geometrical optics: the specular point of a convex surface).
+
+    Sphere: its radius (the specular point at R - a); cylinder, upright or flat: its radius
+    (the specular line at R - a, broadside); disk, plate: 0 (the face passes through the
+    centre); dihedral, trihedral: 0 (the multiple-bounce echo appears at the fold line or apex,
+    their reference points); table: 0 (unknown).
+    """
+    if not isinstance(spec, Mapping):
+        return 0.0
+    if spec.get("shape") in ("sphere", "cylinder"):
+        return _positive(spec.get("radius_m"), "radius_m")
+    return 0.0
+
+
 def theory_is_null(spec: Mapping, polarization, atol_db: float = -60.0) -> bool:
     """True where the shape's theory for that channel is null (more than |atol_db| below the
     shape's peak co-polarized value): HV and VH for every shape but a dihedral; for a dihedral
