@@ -183,6 +183,35 @@ def _int_keyword(arg: str, name: str, path: str, line: int, minimum: int) -> int
     return value
 
 
+_UNIT_EXPONENT = {"hz": 0, "khz": 3, "mhz": 6, "ghz": 9}
+_MAX_EXACT = 1e12  # up to 12 significant digits: integers this large are exact, a few ulp stay below 1e-3
+
+
+def frequency_hz_from_file(values, unit: str) -> np.ndarray:
+    """Frequencies in Hz from the numbers a file holds in ``unit`` (hz, khz, mhz, ghz), on the
+    decimal grid those numbers state.
+
+    A plain product is off in the last binary digit (8.544 GHz * 1e9 = 8544000000.000001 Hz).
+    Instead the fewest decimals d (0 to 15) that hold every value (to a few units in the last
+    binary place) are found, each value becomes the integer n = round(v 10^d), and
+    n 10^(e - d) (e the unit's power of ten) is one correctly rounded multiplication or
+    division of exact numbers: the double nearest to the decimal the file states. Values
+    with more than 12 significant digits are scaled plainly.
+    """
+    v = np.asarray(values, dtype=float)
+    e = _UNIT_EXPONENT[str(unit).lower()]
+    if v.size == 0 or not np.all(np.isfinite(v)):
+        return v * 10.0 ** e
+    for d in range(16):
+        x = v * 10.0 ** d
+        if np.max(np.abs(x)) >= _MAX_EXACT:
+            break
+        n = np.rint(x)
+        if np.all(np.abs(x - n) <= 1e-15 * np.abs(x)):  # within the double's own rounding (a few ulp)
+            return n * 10.0 ** (e - d) if e >= d else n / 10.0 ** (d - e)
+    return v * 10.0 ** e
+
+
 def _ports_from_extension(path: str) -> int | None:
     m = _EXTENSION.search(path)
     return int(m.group(1)) if m else None
@@ -457,7 +486,7 @@ def read_touchstone(path, n_ports: int | None = None) -> Touchstone:
     else:
         rows, row_starts = _checked_table(data, data_lineno, width, pairs, version == "1.0" and ports == 2, path)
     row_lines = np.asarray(data_lineno)[row_starts]
-    freq = rows[:, 0] * _UNITS[opts["unit"]]
+    freq = frequency_hz_from_file(rows[:, 0], opts["unit"])
     if not np.all(np.isfinite(freq)):
         k = int(np.argmax(~np.isfinite(freq)))
         raise InputError(f"frequency {rows[k, 0]:g} {opts['unit']} is too large", path=path, line=int(row_lines[k]))
