@@ -409,25 +409,28 @@ class Views:
 
     # ------------------------------------------------------------------ safety
     @memo
-    def safety(self, p_dbm, gain_dbi, distance_m, f_ghz, population):
+    def safety(self, p_dbm, gain_dbi, distance_m, f_ghz, population, aperture_m=None):
         from ..safety import estimate_exposure
 
         try:
             if None in (p_dbm, gain_dbi, distance_m, f_ghz):
                 raise InputError("fill in power, gain, distance and frequency")
-            e = estimate_exposure(p_dbm, gain_dbi, distance_m, float(f_ghz) * 1e9, population)
+            e = estimate_exposure(p_dbm, gain_dbi, distance_m, float(f_ghz) * 1e9, population,
+                                  aperture_m=aperture_m if aperture_m not in (None, "") else None)
         except InputError as exc:
             return html.P(str(exc), className="error"), plots.message_figure(str(exc))
-        verdict = ("above" if e.ratio > 1 else "below")
+        near = e.near_field_warning()
         out = html.Div([
             html.P([html.Strong(f"{e.power_density_w_m2:.3g} W/m²"), f" at {distance_m:g} m: ",
                     html.Strong(f"{100 * e.ratio:.3g} %" if e.ratio < 10 else f"{e.ratio:.3g} times"),
                     f" {'of ' if e.ratio < 10 else ''}the {e.population} reference level "
-                    f"({e.reference_level_w_m2:.3g} W/m² at {f_ghz:g} GHz), {verdict} it."],
+                    f"({e.reference_level_w_m2:.3g} W/m² at {f_ghz:g} GHz): {e.verdict}."],
                    className="big" + (" over" if e.ratio > 1 else "")),
+            html.P(("Near field: " + near) if near else f"Beyond the far-field distance ({e.aperture_note()}).",
+                   className="error" if near else "hint", id="safe-near"),
             html.P("Indicative far-field estimate only, not a statement of compliance: local regulations and the "
                    "site's RF safety rules decide.", className="hint")])
-        return out, plots.fig_safety(p_dbm, gain_dbi, e.reference_level_w_m2, distance_m)
+        return out, plots.fig_safety(p_dbm, gain_dbi, e.reference_level_w_m2, distance_m, e.far_field_m)
 
     # ------------------------------------------------------------------ upload
     def start_upload(self, contents, filename) -> str:
@@ -587,9 +590,9 @@ def register(app, views: Views) -> None:
     # ---- safety
     @app.callback(Output("safe-out", "children"), Output("fig-safety", "figure"), Input("safe-p", "value"),
                   Input("safe-g", "value"), Input("safe-r", "value"), Input("safe-f", "value"),
-                  Input("safe-pop", "value"))
-    def _safety(p, g, r, f, pop):
-        return views.safety(p, g, r, f, pop)
+                  Input("safe-pop", "value"), Input("safe-a", "value"))
+    def _safety(p, g, r, f, pop, a):
+        return views.safety(p, g, r, f, pop, a)
 
     # ---- upload
     @app.callback(Output("upload-job", "data"), Output("upload-interval", "disabled"),

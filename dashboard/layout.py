@@ -142,7 +142,9 @@ def safety_view() -> html.Div:
     num = {"type": "number", "debounce": True, "className": "num"}
     return html.Div(className="view", children=[
         html.P(["Far-field estimate S = P G / (4 π r²) against the ICNIRP 2020 whole-body reference level "
-                "(Table 5; values as our design notes give them, from memory). ",
+                "(Table 5; values from memory, see README, RF safety). It holds beyond the far-field distance "
+                "2 D²/λ of the antenna's aperture D; without an aperture, D comes from the gain, G = 0.5 (π D/λ)² "
+                "(an assumed aperture efficiency of 0.5). ",
                 html.Strong("Indicative only: it is not a compliance assessment. Local regulations and the site's "
                             "RF safety rules apply.")], className="hint"),
         html.Div(className="controls", children=[
@@ -150,6 +152,8 @@ def safety_view() -> html.Div:
             _field("Antenna gain (dBi)", dcc.Input(id="safe-g", value=20, **num), width="11rem"),
             _field("Distance (m)", dcc.Input(id="safe-r", value=1.0, min=0.01, **num), width="9rem"),
             _field("Frequency (GHz)", dcc.Input(id="safe-f", value=10.0, **num), width="9rem"),
+            _field("Aperture (m; empty: from the gain)", dcc.Input(id="safe-a", value=None, min=0.001, **num),
+                   width="15rem"),
             _field("Person exposed", dcc.RadioItems(id="safe-pop", inline=True, value="general public",
                                                     options=["general public", "occupational"]), width="20rem"),
         ]),

@@ -163,8 +163,10 @@ def fig_trend(rows: list[dict], metric: str, label: str) -> go.Figure:
     return _layout(fig, f"{label} across revisions (newest run of each)")
 
 
-def fig_safety(p_dbm: float, gain_dbi: float, reference_w_m2: float, distance_m: float) -> go.Figure:
-    """Far-field power density versus distance (log-log), the reference level and the chosen distance."""
+def fig_safety(p_dbm: float, gain_dbi: float, reference_w_m2: float, distance_m: float,
+               far_field_m: float | None = None) -> go.Figure:
+    """Far-field power density versus distance (log-log), the reference level, the chosen distance and,
+    when given, the far-field distance 2 D^2 / lambda (the curve is dotted inside it, where it does not hold)."""
     from ..safety import power_density_curve
 
     r = np.logspace(-1, 2, 200)
@@ -177,6 +179,16 @@ def fig_safety(p_dbm: float, gain_dbi: float, reference_w_m2: float, distance_m:
     s_at = float(power_density_curve(p_dbm, gain_dbi, [distance_m])[0])
     fig.add_trace(go.Scatter(x=[distance_m], y=[s_at], mode="markers", name=f"{s_at:.3g} W/m² at {distance_m:g} m",
                              marker={"color": PALETTE[2], "size": 11}))
+    if far_field_m is not None and np.isfinite(far_field_m):
+        inside = r < far_field_m
+        fig.data[0].update(x=r[~inside], y=power_density_curve(p_dbm, gain_dbi, r[~inside]))
+        fig.add_trace(go.Scatter(x=r[inside], y=power_density_curve(p_dbm, gain_dbi, r[inside]), mode="lines",
+                                 name="near field: formula does not hold",
+                                 line={"color": PALETTE[1], "width": 2, "dash": "dot"}))
+        s_all = power_density_curve(p_dbm, gain_dbi, r)
+        fig.add_trace(go.Scatter(x=[far_field_m] * 2, y=[float(s_all.min()), float(s_all.max())], mode="lines",
+                                 name=f"far-field distance 2 D²/λ = {far_field_m:.3g} m",
+                                 line={"color": CAUTION_COLOR, "dash": "dot", "width": 1}))
     fig.update_xaxes(title_text="distance from the antenna (m)", type="log")
     fig.update_yaxes(title_text="power density (W/m²)", type="log", exponentformat="power")
     return _layout(fig, "Indicative far-field power density (not valid in the near field)", height=380)
