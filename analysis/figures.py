@@ -225,10 +225,14 @@ def fig_reduction_map(result, subject: str, pol: str) -> go.Figure:
                         height=460)
 
 
-def fig_check(result, check_row: dict, specular_deg: float = 0.0) -> go.Figure:
-    """Check target against theory: measured and theory RCS at the angle nearest specular (top),
-    the run's error curve 10 log10(measured / theory) with the tolerance band (bottom)."""
+def fig_check(result, check_row: dict, specular_deg: float | None = None) -> go.Figure:
+    """Check target against theory: measured and theory RCS at the angle nearest specular (top; theory
+    at that measured angle), the run's error curve 10 log10(measured / theory) with the tolerance band
+    (bottom). ``specular_deg`` defaults to the check row's own."""
     from .references import reference_amplitude
+
+    if specular_deg is None:
+        specular_deg = float(check_row.get("specular_deg") or 0.0)
 
     name, pol = check_row["target"], check_row["polarization"]
     t = result.targets[name]

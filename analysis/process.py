@@ -487,6 +487,7 @@ def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, setting
                 "tolerance_db": settings.check_tolerance_db,
                 "passed": bool(max_err <= settings.check_tolerance_db),
                 "shape": spec.shape,
+                "specular_deg": spec.specular_deg,
                 "points": int(scored.size),
                 "error_curve_db": [float(x) for x in mean_curve],
             })

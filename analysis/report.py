@@ -214,7 +214,8 @@ def provenance(result, campaign) -> str:
     refs = "".join(
         f"<tr><td>{_esc(r.get('polarization'))}</td><td>{_esc(r.get('target') or '—')}</td>"
         f"<td>{_esc(_shape_text(r.get('shape')))}</td><td>{_esc(r.get('method'))}"
-        f"{' (approximate)' if r.get('approximate') else ''}</td></tr>" for r in s.get("references", []))
+        f"{' (approximate)' if r.get('approximate') else ''}{_esc(_centring_text(r))}</td></tr>"
+        for r in s.get("references", []))
     files = "".join(f'<tr><td><code>{_esc(p)}</code></td><td class="hash"><code>{_esc(h)}</code></td></tr>'
                     for p, h in s.get("files", {}).items())
     manifest_text = getattr(getattr(campaign, "manifest", None), "text", "") if campaign is not None else ""
@@ -234,6 +235,15 @@ def provenance(result, campaign) -> str:
           f'<th scope="col">file (relative to the manifest)</th><th scope="col">SHA-256</th></tr></thead>'
           f"<tbody>{files}</tbody></table>"
         + manifest_block)
+
+
+def _centring_text(ref: dict) -> str:
+    """The centring check of an angle-averaged reference (README, The processing chain, step 3)."""
+    if ref.get("off_axis_m") is not None:
+        return f"; centring check: {1e3 * ref['off_axis_m']:.2f} mm off the turntable axis"
+    if ref.get("shift_spread_m") is not None:
+        return f"; centring check: echo delay spread {1e3 * ref['shift_spread_m']:.2f} mm (arc too narrow for a fit)"
+    return ""
 
 
 def _shape_text(shape) -> str:

@@ -373,6 +373,13 @@ def target_size_m(target: dict) -> float | None:
     return None
 
 
+def target_extent_m(target: dict) -> float | None:
+    """The larger of size_m and the model's own largest dimension (m), as the far-field check uses."""
+    sizes = [s for s in (target.get("size_m"), target_size_m({k: v for k, v in target.items() if k != "size_m"}))
+             if s is not None]
+    return max(sizes) if sizes else None
+
+
 def system_response(cfg: dict, frequency_hz) -> np.ndarray:
     """G(f): gain with slope, constant phase and a cable-mismatch ripple (complex, (nf,))."""
     s = cfg["system"]
@@ -453,7 +460,7 @@ def planning_rows(cfg: dict, frequency_hz, amplitudes: dict) -> list[PlanRow]:
         in_gate = abs(sp["range_m"] - R) <= span / 2  # the support's echo inside this target's gate
         residual = sigma_support * (sp["change"] ** 2 * (t["role"] != "background") + drift_var) if in_gate else 0.0
         floor = noise + residual
-        size = target_size_m(t)
+        size = target_extent_m(t)  # the far field needs the largest of size_m and the model's own size
         far = 2 * size ** 2 / lam_top if size else None
         for pol in cfg["polarizations"]:
             med = None

@@ -201,8 +201,18 @@ def test_safety_view(views):
     # S = P G / (4 pi r^2) = 10 * 100 / (16 pi) = 19.9 W/m^2 (far-field formula), 10 W/m^2 public level
     # (ICNIRP 2020 Table 5, from memory): 199 %
     assert "19.9 W/m²" in _text(out) and "199 %" in _text(out)
+    assert "above the reference level in this far-field estimate" in _text(out)
     out, _fig = v.safety(40, 20, 2.0, 0.01, "general public")
     assert "outside 30 MHz-300 GHz" in _text(out)
+    # the default 1 m is inside a 20 dBi horn's far-field distance at 10 GHz: 2 D^2 / lambda = 1.2 m with
+    # G = 0.5 (pi D / lambda)^2 (aperture gain, Balanis, Antenna Theory; from memory)
+    out, fig = v.safety(30, 20, 1.0, 10.0, "general public")
+    assert "near field" in _text(out) and "1.22 m" in _text(out)
+    assert "below the reference level in this far-field estimate" in _text(out)
+    assert "compliant" not in _text(out)
+    assert any("far-field distance" in (tr.name or "") for tr in fig.data)
+    out, _fig = v.safety(30, 20, 1.0, 10.0, "general public", 0.05)  # a given aperture: 2 D^2/lambda = 0.17 m
+    assert "Near field:" not in _text(out) and "Beyond the far-field distance" in _text(out)
 
 
 # ---------------------------------------------------------------- upload
