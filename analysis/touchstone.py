@@ -200,6 +200,11 @@ def frequency_hz_from_file(values, unit: str) -> np.ndarray:
     """
     v = np.asarray(values, dtype=float)
     e = _UNIT_EXPONENT[str(unit).lower()]
+    with np.errstate(over="ignore"):  # a value too large for Hz becomes inf; the reader refuses it
+        return _on_decimal_grid(v, e)
+
+
+def _on_decimal_grid(v: np.ndarray, e: int) -> np.ndarray:
     if v.size == 0 or not np.all(np.isfinite(v)):
         return v * 10.0 ** e
     for d in range(16):
