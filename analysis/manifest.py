@@ -114,6 +114,7 @@ class Manifest:
     band_hz: tuple[float, float] | None
     targets: tuple[TargetSpec, ...]
     text: str = field(repr=False, default="")
+    band_line: int | None = None  # line of the [band] table, for messages about it
 
     @property
     def folder(self) -> Path:
@@ -360,7 +361,8 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
 
     targets = _parse_targets(doc, text, check, chamber)
     manifest = Manifest(path=path, name=name or "", prototype=prototype or "", date=date,
-                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text)
+                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text,
+                        band_line=bline if band_t else None)
     _check_relations(manifest, check)
     return manifest, check.problems
 

@@ -24,16 +24,44 @@ class Outcome:
         lines = [f"processed campaign {self.result.campaign!r} into {self.out_dir}"]
         if self.run_id is not None:
             lines.append(f"stored as run {self.run_id} in {self.store_url}")
+        lines.extend(getattr(self, "notes", []) or [])
+        s = self.result.settings
+        band = s.get("reporting_band_hz")
+        sector = s.get("sector_deg")
+        if band:
+            lines.append(f"band {band[0] / 1e9:.4g}-{band[1] / 1e9:.4g} GHz; sector "
+                         + ("all measured angles" if not sector else f"{sector[0]:g}:{sector[1]:g} deg")
+                         + (f" ({s['sector_contents']})" if s.get("sector_contents") else ""))
         for c in self.result.checks:
             lines.append(f"check {c['target']} {c['polarization']}: max error {c['max_error_db']:.2f} dB, "
                          f"RMS {c['rms_error_db']:.2f} dB -> {'pass' if c['passed'] else 'FAIL'}")
         for m in self.result.metrics:
-            bound = "" if m["bound"] == "none" else f" ({m['bound']} bound)"
-            lines.append(f"{m['subject']} vs {m['baseline']} {m['polarization']}: band reduction "
-                         f"{m['band_reduction_db']:.2f} +/- {m['band_reduction_uncertainty_db']:.2f} dB{bound}, "
-                         f"best {m['best_reduction_db']:.1f} dB at {m['best_frequency_hz'] / 1e9:.3f} GHz, "
-                         f"bandwidth {m['bandwidth_hz'] / 1e6:.0f} MHz")
+            lines.append(describe_metric(m))
         return "\n".join(lines)
+
+
+def describe_metric(m: dict) -> str:
+    """One line per metrics row; an undetermined reduction is printed as such, not as a number."""
+    head = f"{m['subject']} vs {m['baseline']} {m['polarization']}: band reduction "
+    if m["bound"] == "undetermined":
+        red = "undetermined (subject and baseline both at the floor)"
+    else:
+        bound = "" if m["bound"] == "none" else f" ({m['bound']} bound)"
+        red = f"{m['band_reduction_db']:.2f} +/- {m['band_reduction_uncertainty_db']:.2f} dB{bound}"
+    bw = m.get("bandwidth_hz")
+    text = (head + red + f", best {m['best_reduction_db']:.1f} dB at {m['best_frequency_hz'] / 1e9:.3f} GHz, "
+            f"bandwidth {'-' if bw is None else f'{bw / 1e6:.0f}'} MHz")
+    med = (m.get("sector_reduction_db") or {}).get("median")
+    if med is not None and m["bound"] != "undetermined":
+        pct = ", ".join(f"{k} {v:.2f}" for k, v in m["sector_reduction_db"].items() if k != "median" and v is not None)
+        text += f"; per-point median {med:.2f} dB ({pct})"
+    if "mounting_offset_reliable" in m:
+        off = m.get("mounting_offset_deg")
+        text += (f"; mounting offset {off:+.2f} deg" + (" (aligned)" if m.get("angles_aligned") else "")
+                 if off is not None else f"; mounting offset none ({m.get('mounting_offset_note') or 'not reliable'})")
+    if m.get("gate_mismatch"):
+        text += "; WARNING: gated differently from its baseline"
+    return text
 
 
 def _progress(quiet: bool, total: int):
