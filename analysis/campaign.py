@@ -378,6 +378,10 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
                                 f"calibrated from the geometric mean of HH and VV, an approximation", mpath)))
     if not refs and subject_pols:
         problem(InputError("no reference target (role = \"reference\"): calibration needs one", mpath))
+    if not manifest.by_role("background") and manifest.targets:
+        warn(str(InputError("no background target (role = \"background\"): processing without background "
+                            "subtraction, by the time gate alone; clutter and coupling inside each gate remain in "
+                            "every result, and the floor comes from the targets' own sweeps", mpath)))
     ref_pols = sorted({p for c in refs for p in c.polarizations}, key=("HH", "VV", "HV", "VH").index)
     for name, cube in cubes.items():
         spec = cube.spec
@@ -474,8 +478,14 @@ def echo_outside_gate(manifest: Manifest, cube: TargetCube, bg: TargetCube | Non
     return peak if not (center_m - span_m / 2 <= peak <= center_m + span_m / 2) else None
 
 
-def _check_echo_in_gate(manifest: Manifest, cubes, freq, warn) -> None:
-    """Warn when a reference's, check target's or baseline's echo peaks outside its gate (README, Campaign manifest)."""
+ECHO_WARNING = "its echo peaks at"
+
+
+def _check_echo_in_gate(manifest: Manifest, cubes, freq, warn, gate_of=None) -> None:
+    """Warn when a reference's, check target's or baseline's echo peaks outside its gate (README, Campaign manifest).
+
+    ``gate_of(spec) -> (center_m, span_m)``: the gates used (default: the manifest's).
+    """
     if len(freq) < 8:
         return
     baselines = {c.spec.baseline for c in cubes.values() if c.spec.baseline}
@@ -489,11 +499,14 @@ def _check_echo_in_gate(manifest: Manifest, cubes, freq, warn) -> None:
             continue
         if bg is not None and any(p not in bg.polarizations for p in cube.polarizations):
             continue
-        center, span = manifest.gate_center_m(spec), manifest.gate_span_m(spec)
-        peak = echo_outside_gate(manifest, cube, bg, freq, center, span)
+        center, span = gate_of(spec) if gate_of else (manifest.gate_center_m(spec), manifest.gate_span_m(spec))
+        try:
+            peak = echo_outside_gate(manifest, cube, bg, freq, center, span)
+        except KeyError:  # the background does not cover the target's angles: reported as a problem already
+            continue
         if peak is not None:
             warn(str(InputError(
-                f"target {name}: its echo peaks at {peak:.3f} m, outside its gate {center - span / 2:.3f}-"
+                f"target {name}: {ECHO_WARNING} {peak:.3f} m, outside its gate {center - span / 2:.3f}-"
                 f"{center + span / 2:.3f} m: is the reference-plane offset missing ([chamber] offset_m = "
                 f"{peak - spec.range_m:+.3f} would centre it)? Use --auto-gate or set the offset", manifest.path,
                 spec.line)))

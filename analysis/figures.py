@@ -286,7 +286,10 @@ def campaign_sweeps(campaign, target: str | None = None, pol: str | None = None,
     ip = cube.polarizations.index(pol)
     ia = _nearest(np.abs(_wrap(cube.angles_deg - angle_deg)), 0.0)
     raw = cube.data.values[ip, ia].mean(axis=0)
-    bg = campaign.cube(m.background_of(cube.spec).name)
+    bg_spec = m.background_of(cube.spec)
+    if bg_spec is None:  # no background measured: nothing is subtracted
+        return target, pol, float(cube.angles_deg[ia]), raw, raw
+    bg = campaign.cube(bg_spec.name)
     bgi = _nearest(np.abs(_wrap(bg.angles_deg - cube.angles_deg[ia])), 0.0)
     bg_s = bg.data.sel(polarization=pol).values[bgi].mean(axis=0)
     return target, pol, float(cube.angles_deg[ia]), raw, raw - bg_s

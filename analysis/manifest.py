@@ -484,8 +484,6 @@ def _parse_shape(t: dict, label: str, check: _Checker, text: str, line: int | No
 def _check_relations(m: Manifest, check: _Checker) -> None:
     names = {t.name: t for t in m.targets}
     backgrounds = m.by_role("background")
-    if m.targets and not backgrounds:
-        check.problem("no background target (role = \"background\"): background subtraction needs one", None)
     for t in m.targets:
         if t.role != "background":
             if t.background is not None:

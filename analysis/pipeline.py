@@ -19,6 +19,7 @@ class Outcome:
     paths: dict
     run_id: int | None = None
     store_url: str | None = None
+    notes: list = None  # lines about the store (raw files already stored under another campaign)
 
     def describe(self) -> str:
         lines = [f"processed campaign {self.result.campaign!r} into {self.out_dir}"]
@@ -95,12 +96,16 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
             from .report import render_report  # imported only when used: plotly is slow to import
 
             html = render_report(result, campaign)
-        run_id, url = None, None
+        run_id, url, notes = None, None, []
         if store_url is not None:
             from . import store
 
             url = store.resolve_url(store_url or None)
+            shared = store.files_already_stored(url, campaign)
             run_id = store.record_run(url, campaign, result)
+            if shared:
+                notes.append(f"these {shared['files']} files (of {shared['of']}) are already stored under campaign "
+                             f"{shared['campaign']!r} (id {shared['campaign_id']}): the new campaign is linked to it")
         extra = {"run_id": run_id} if run_id is not None else None
         paths = outputs.write_outputs(result, out, extra)
         if html is not None:
@@ -109,4 +114,4 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
         tick("outputs")
     finally:
         bar.close()
-    return Outcome(result=result, out_dir=out, paths=paths, run_id=run_id, store_url=url)
+    return Outcome(result=result, out_dir=out, paths=paths, run_id=run_id, store_url=url, notes=notes)

@@ -16,7 +16,8 @@ import pandas as pd
 import xarray as xr
 
 from . import __version__, calibrate, metrics, references, timedomain
-from .campaign import Campaign, TargetCube, band_problem, wrap_angle_deg
+from .campaign import ECHO_WARNING, Campaign, TargetCube, band_problem, wrap_angle_deg
+from .campaign import _check_echo_in_gate as check_echo_in_gate
 from .constants import C0
 from .errors import InputError
 from .manifest import TargetSpec
@@ -188,7 +189,10 @@ def _gate_kwargs(campaign: Campaign, settings: ProcessSettings) -> dict[str, Any
 def _subtracted(campaign: Campaign, cube: TargetCube, settings: ProcessSettings, gate: dict, center, span):
     """Background-subtracted sweeps, repeats kept: (pol, angle, repeat, f), and the background repeats."""
     f = campaign.frequency_hz
-    bg = campaign.cube(campaign.manifest.background_of(cube.spec).name)
+    bg_spec = campaign.manifest.background_of(cube.spec)
+    if bg_spec is None:  # no background measured: gating alone (README, The processing chain)
+        return cube.data.values, None
+    bg = campaign.cube(bg_spec.name)
     bg_data = bg.data.sel(polarization=cube.polarizations).values
     bg_mean = bg_data.mean(axis=2)
     bg_at = calibrate.background_at_angles(bg_mean, bg.angles_deg, cube.angles_deg)[:, :, None, :]
@@ -237,6 +241,10 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     offset_est, offset_ref = (None, None)
     if settings.auto_gate:
         offset_est, offset_ref = estimate_offset_m(campaign, settings)
+        # the manifest's gates were checked for echoes outside them; check the measured ones instead
+        warnings = [w for w in warnings if ECHO_WARNING not in w]
+        check_echo_in_gate(m, campaign.cubes, campaign.frequency_hz, warnings.append,
+                           lambda spec: _gate_of(campaign, spec, settings, offset_est))
         tick("auto-gate")
 
     # ---- gate every non-background target, average repeats
@@ -253,12 +261,17 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         else:
             g_mean = timedomain.time_gate(f, d[:, :, 0, :], center, span, **gate)
             var_mean, n_rep = None, 1
-        key = (bg.name, tuple(cube.polarizations), center, span)
-        if key not in noise_cache:  # targets sharing a background and a gate share its floor
-            noise_cache[key] = calibrate.gated_noise_power(f, bg.data.sel(polarization=cube.polarizations).values,
-                                                           center, span, **gate)
-        noise, how = noise_cache[key]
-        resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
+        if bg is None:  # the floor from the target's own sweeps: their repeats, else their range profile
+            noise, how = calibrate.gated_noise_power(f, cube.data.values, center, span, **gate)
+            how = f"no background: {how.replace('background', 'target')}"
+            resid = noise / n_rep
+        else:
+            key = (bg.name, tuple(cube.polarizations), center, span)
+            if key not in noise_cache:  # targets sharing a background and a gate share its floor
+                noise_cache[key] = calibrate.gated_noise_power(
+                    f, bg.data.sel(polarization=cube.polarizations).values, center, span, **gate)
+            noise, how = noise_cache[key]
+            resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
         gated[name] = {"cube": cube, "g": g_mean, "var": var_mean, "noise": resid, "floor_method": how,
                        "center": center, "span": span}
         tick(f"gate {name}")
