@@ -336,3 +336,48 @@ def test_trihedral_reference_at_several_angles_is_warned(tiny_campaign):
     _, _, warnings = inspect_campaign(tiny_campaign)
     assert any("the trihedral model is its peak RCS only, the same at every angle, but the target was measured "
                "at 3 angles" in w for w in warnings)
+
+
+# ---------------------------------------------------------------- dashboard (views without a browser)
+
+def test_dashboard_empty_states_floor_legend_paths_and_trend(tiny_campaign, tmp_path):
+    from cloakrcs.dashboard import plots
+    from cloakrcs.dashboard.callbacks import upload_relative
+    from cloakrcs.dashboard.layout import build_layout
+
+    page = build_layout([], None)
+
+    def find(node, id_):
+        if getattr(node, "id", None) == id_:
+            return node
+        for child in (getattr(node, "children", None) or []) if isinstance(getattr(node, "children", None), list) \
+                else [getattr(node, "children", None)]:
+            if child is not None and not isinstance(child, str):
+                hit = find(child, id_)
+                if hit is not None:
+                    return hit
+        return None
+
+    for gid in ("fig-profile", "fig-preview", "fig-trend", "fig-red-map"):
+        fig = find(page, gid).figure
+        assert fig.layout.annotations and fig.layout.annotations[0].text.endswith(".")  # a sentence, not axes
+    assert find(build_layout([{"label": "run 1", "value": 1}], 1), "empty-banner").style == {"display": "none"}
+    res = process_campaign(load_campaign(tiny_campaign))
+    floors = [t.name for t in plots.fig_floor(res, "VV").data if t.name.endswith("floor")]
+    assert floors == ["bare floor", "r1 floor"] and all(t.showlegend is not False
+                                                         for t in plots.fig_floor(res, "VV").data)
+    root = tmp_path / "uploads"
+    msg = f"{root}/0123456789abcdef/manifest.toml:24: target bare: range 4.2 m is short"
+    assert upload_relative(msg, root) == "manifest.toml:24: target bare: range 4.2 m is short"
+    rows = [{"revision": "R1", "polarization": "VV", "run_id": 1, "band_reduction_db": 9.0, "bound": "none",
+             "band_reduction_uncertainty_db": 0.4, "settings_key": "aaaa", "settings_label": "sector all"},
+            {"revision": "R2", "polarization": "VV", "run_id": 2, "band_reduction_db": 12.0, "bound": "lower",
+             "band_reduction_uncertainty_db": 0.5, "settings_key": "aaaa", "settings_label": "sector all"},
+            {"revision": "R2", "polarization": "VV", "run_id": 3, "band_reduction_db": 13.0, "bound": "none",
+             "band_reduction_uncertainty_db": 0.5, "settings_key": "bbbb", "settings_label": "sector -20:20"}]
+    fig = plots.fig_trend(rows, "band_reduction_db", "band-averaged reduction (dB)")
+    lines = [t for t in fig.data if t.x and t.x[0] is not None]
+    assert len(lines) == 2  # two settings groups, never joined
+    first = next(t for t in lines if list(t.x) == ["R1", "R2"])
+    assert list(first.error_y.array) == [0.4, 0.5] and list(first.marker.symbol) == ["circle", "triangle-up"]
+    assert "sector all" in fig.layout.annotations[0].text and "sector -20:20" in fig.layout.annotations[0].text

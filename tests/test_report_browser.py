@@ -105,4 +105,5 @@ def test_summary_fits_the_page_and_hashes_are_collapsed(page, part_turn_report):
 
 def test_report_weight(part_turn_report):
     size = part_turn_report.paths["report"].stat().st_size
-    assert size < 6e6, size
+    # the small campaign's report: compressed plotly.js (about 2 MB) and its figures; 5.1 MB with plotly.js inlined plain
+    assert size < 3e6, size
