@@ -204,6 +204,16 @@ def _plan_target(manifest: Manifest, spec: TargetSpec, root: Path | None):
     index = {(s.polarization, s.angle_deg, s.repeat): s for s in sweeps}
     missing = [(p, a, r) for p in pols for a in angles for r in repeats if (p, a, r) not in index]
     if missing:
+        per_pol = {p: [s for s in sweeps if s.polarization == p] for p in pols}
+        most = max(len(v) for v in per_pol.values())
+        stray = [p for p in pols if len(per_pol[p]) * 2 <= most]
+        if stray:
+            files = per_pol[stray[0]]
+            names = ", ".join(s.path.name for s in files[:3]) + (f" and {len(files) - 3} more" if len(files) > 3 else "")
+            raise InputError(f"target {spec.name}: {names} introduce{'s' if len(files) == 1 else ''} polarization "
+                             f"{stray[0]}, which no other file of the target has ({len(files)} {stray[0]} file(s) "
+                             f"against {most} per other polarization): rename or remove "
+                             f"{'it' if len(files) == 1 else 'them'}", manifest.path, spec.line)
         p, a, r = missing[0]
         raise InputError(f"target {spec.name}: {len(missing)} sweep(s) missing from the polarization x angle x "
                          f"repeat grid, first {p} at {a:g} deg repeat {r}", manifest.path, spec.line)
@@ -329,6 +339,10 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
                         problem(InputError(f"target {name}: no sweep for {pol}, which it must calibrate", mpath, spec.line))
                     else:
                         references_by_pol.setdefault(pol, []).append(name)
+            if references.shape_is_angle_independent_peak(spec.shape) and len(cube.angles_deg) > 1:
+                warn(str(InputError(f"target {name}: the {spec.shape['shape']} model is its peak RCS only, the same "
+                                    f"at every angle, but the target was measured at {len(cube.angles_deg)} angles: "
+                                    f"only sweeps at its peak aspect agree with it", mpath, spec.line)))
             if spec.shape["shape"] == "sphere":
                 a = spec.shape["radius_m"]
                 center = manifest.gate_center_m(spec)
@@ -346,6 +360,11 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
             miss_pol = [p for p in cube.polarizations if p not in base.polarizations]
             if miss_pol:
                 problem(InputError(f"target {name}: baseline {base.name} has no {miss_pol[0]} sweeps", mpath, spec.line))
+            lacking = [p for p in base.polarizations if p not in cube.polarizations]
+            if lacking:
+                warn(str(InputError(f"target {name}: no {'/'.join(lacking)} sweeps although its baseline {base.name} "
+                                    f"has them: no {'/'.join(lacking)} reduction for {name} (misnamed files?)",
+                                    mpath, spec.line)))
             base_angles = set(np.round(wrap_angle_deg(base.angles_deg), 6))
             miss_ang = [a for a in cube.angles_deg if round(float(wrap_angle_deg(a)), 6) not in base_angles]
             if miss_ang:
@@ -361,6 +380,20 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
                                 f"calibrated from the geometric mean of HH and VV, an approximation", mpath)))
     if not refs and subject_pols:
         problem(InputError("no reference target (role = \"reference\"): calibration needs one", mpath))
+    if not manifest.by_role("background") and manifest.targets:
+        warn(str(InputError("no background target (role = \"background\"): processing without background "
+                            "subtraction, by the time gate alone; clutter and coupling inside each gate remain in "
+                            "every result, and the floor comes from the targets' own sweeps", mpath)))
+    ref_pols = sorted({p for c in refs for p in c.polarizations}, key=("HH", "VV", "HV", "VH").index)
+    for name, cube in cubes.items():
+        spec = cube.spec
+        if spec.role == "subject" and not (spec.baseline and spec.baseline in cubes):
+            lacking = [p for p in ref_pols if p not in cube.polarizations]
+            if lacking:
+                warn(str(InputError(f"target {name}: no {'/'.join(lacking)} sweeps although the reference has them "
+                                    f"(misnamed files?)", mpath, spec.line)))
+    _check_band(manifest, cubes, freq, problem, warn)
+    _check_echo_in_gate(manifest, cubes, freq, warn)
     for ref in refs:
         for name, cube in cubes.items():
             if cube.spec.role == "subject":
@@ -390,6 +423,111 @@ def flat_top_problem(extent_m: float, echo_center_m: float, center_m: float, spa
     return (f"its extent {extent_m:g} m ({lo:.3f}-{hi:.3f} m down-range) exceeds the gate's flat top "
             f"[{center_m - half_top:.3f}, {center_m + half_top:.3f}] m (span {span_m:g} m minus its soft edges): "
             f"echoes on the edges are attenuated; widen the gate span")
+def valid_band_of(manifest: Manifest, frequency_hz, spans_m=None, trim_hz=None) -> tuple[float, float] | None:
+    """First and last frequency (Hz) of the valid band for the manifest's gates (None: nothing valid)."""
+    from . import timedomain
+
+    spans = spans_m or [manifest.gate_span_m(t) for t in manifest.targets if t.role != "background"]
+    if not spans or len(frequency_hz) < 2:
+        return None
+    valid = timedomain.valid_band_mask(frequency_hz, min(spans), manifest.gate.trim_hz if trim_hz is None else trim_hz)
+    return (float(frequency_hz[valid][0]), float(frequency_hz[valid][-1])) if valid.any() else None
+
+
+def band_problem(band_hz, frequency_hz, valid_hz, source: str) -> tuple[str | None, str | None]:
+    """(error, warning) for a reporting band against the data: ``source`` names where it was given.
+
+    An error when the band holds no valid frequency (outside the measured grid, or inside it but
+    outside the valid band that gating leaves); a warning when only part of it is outside (the
+    metrics then use the overlap).
+    """
+    lo, hi = band_hz
+    text = f"{source} {lo / 1e9:g}-{hi / 1e9:g} GHz"
+    f0, f1 = float(frequency_hz[0]), float(frequency_hz[-1])
+    if hi < f0 or lo > f1:
+        return f"{text} lies outside the measured frequencies {f0 / 1e9:.4g}-{f1 / 1e9:.4g} GHz", None
+    if valid_hz is None:
+        return None, None
+    v0, v1 = valid_hz
+    if hi < v0 - 1e-6 or lo > v1 + 1e-6:
+        return (f"{text} lies outside the valid band {v0 / 1e9:.4g}-{v1 / 1e9:.4g} GHz (the measured band less the "
+                f"gate's edge trim)"), None
+    if lo < v0 - 1e-6 or hi > v1 + 1e-6:
+        return None, (f"{text} reaches beyond the valid band {v0 / 1e9:.4g}-{v1 / 1e9:.4g} GHz: the metrics use "
+                      f"{max(lo, v0) / 1e9:.4g}-{min(hi, v1) / 1e9:.4g} GHz")
+    return None, None
+
+
+def _check_band(manifest: Manifest, cubes, freq, problem, warn) -> None:
+    if not manifest.band_hz or len(freq) < 2:
+        return
+    err, warning = band_problem(manifest.band_hz, freq, valid_band_of(manifest, freq), "[band]")
+    if err:
+        problem(InputError(err, manifest.path, manifest.band_line))
+    if warning:
+        warn(str(InputError(warning, manifest.path, manifest.band_line)))
+
+
+ECHO_CHECK_ROLES = ("reference",)
+
+
+def echo_outside_gate(manifest: Manifest, cube: TargetCube, bg: TargetCube | None, frequency_hz,
+                      center_m: float, span_m: float) -> float | None:
+    """Range (m) of a target's strongest echo when it lies outside its gate, else None.
+
+    The echo is the background-subtracted sweeps' RMS range profile, searched from a quarter
+    of the target's range to the unambiguous range (the antenna coupling sits near 0 m).
+    """
+    from . import timedomain
+
+    data = cube.data.values.mean(axis=2)
+    if bg is not None:
+        bg_mean = bg.data.sel(polarization=cube.polarizations).values.mean(axis=2)
+        from .calibrate import background_at_angles
+
+        data = data - background_at_angles(bg_mean, bg.angles_deg, cube.angles_deg)
+    unamb = timedomain.unambiguous_range_m(frequency_hz)
+    g = manifest.gate
+    try:
+        peak = timedomain.find_echo_range(frequency_hz, data.reshape(-1, data.shape[-1]), g.window, g.kaiser_beta,
+                                          pad_factor=4, search=(0.25 * cube.spec.range_m, 0.98 * unamb))
+    except InputError:
+        return None
+    return peak if not (center_m - span_m / 2 <= peak <= center_m + span_m / 2) else None
+
+
+ECHO_WARNING = "its echo peaks at"
+
+
+def _check_echo_in_gate(manifest: Manifest, cubes, freq, warn, gate_of=None) -> None:
+    """Warn when a reference's, check target's or baseline's echo peaks outside its gate (README, Campaign manifest).
+
+    ``gate_of(spec) -> (center_m, span_m)``: the gates used (default: the manifest's).
+    """
+    if len(freq) < 8:
+        return
+    baselines = {c.spec.baseline for c in cubes.values() if c.spec.baseline}
+    for name, cube in cubes.items():
+        spec = cube.spec
+        if not (spec.role in ECHO_CHECK_ROLES or spec.is_check or name in baselines):
+            continue
+        bg_spec = manifest.background_of(spec)
+        bg = cubes.get(bg_spec.name) if bg_spec is not None else None
+        if bg_spec is not None and bg is None:
+            continue
+        if bg is not None and any(p not in bg.polarizations for p in cube.polarizations):
+            continue
+        center, span = gate_of(spec) if gate_of else (manifest.gate_center_m(spec), manifest.gate_span_m(spec))
+        try:
+            peak = echo_outside_gate(manifest, cube, bg, freq, center, span)
+        except KeyError:  # the background does not cover the target's angles: reported as a problem already
+            continue
+        if peak is not None:
+            warn(str(InputError(
+                f"target {name}: {ECHO_WARNING} {peak:.3f} m, outside its gate {center - span / 2:.3f}-"
+                f"{center + span / 2:.3f} m: is the reference-plane offset missing ([chamber] offset_m = "
+                f"{peak - spec.range_m:+.3f} would centre it)? Use --auto-gate or set the offset", manifest.path,
+                spec.line)))
 
 
 def _params(cube: TargetCube) -> str:

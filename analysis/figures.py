@@ -99,14 +99,21 @@ def _wrap(a):
 
 def main_angles(result, subject: str, pol: str, limit: int = 3) -> list[float]:
     """Angles worth a frequency plot: nearest 0 deg, the baseline's main lobe, the worst angle."""
+    from .metrics import sector_mask
+
     t = result.targets[subject]
     angles = t.amplitude.angle.values
+    inside = sector_mask(angles, result.settings.get("sector_deg"))
+    angles = angles[inside] if inside.any() else angles  # examples are drawn inside the sector
     picks = [angles[_nearest(np.abs(_wrap(angles)), 0.0)]]
     base = result.targets.get(t.baseline) if t.baseline else None
     if base is not None and pol in base.amplitude.polarization.values:
         band = result.band_mask
-        lobe = base.sigma.sel(polarization=pol).values[:, band].mean(axis=1)
-        picks.append(base.amplitude.angle.values[int(np.argmax(lobe))])
+        b_angles = base.amplitude.angle.values
+        b_in = sector_mask(b_angles, result.settings.get("sector_deg"))
+        lobe = np.where(b_in if b_in.any() else True, base.sigma.sel(polarization=pol).values[:, band].mean(axis=1),
+                        -np.inf)
+        picks.append(b_angles[int(np.argmax(lobe))])
     for m in result.metrics:
         if m["subject"] == subject and m["polarization"] == pol and m["worst_angle_deg"] is not None:
             picks.append(m["worst_angle_deg"])
@@ -162,6 +169,15 @@ def _shade_band(fig: go.Figure, result) -> None:
         fig.add_vrect(x0=band[0] / 1e9, x1=band[1] / 1e9, fillcolor=SECTOR_FILL, line_width=0, layer="below")
 
 
+POLAR_ROTATION_DEG = 90.0  # data angle 0 at the top, angles counter-clockwise
+
+
+def polar_sector(start_deg: float, stop_deg: float) -> list[float]:
+    """Plotly's polar ``sector`` for data angles START..STOP: it is given in the axis frame
+    (degrees counter-clockwise from the right), so the rotation is added to the data angles."""
+    return [start_deg + POLAR_ROTATION_DEG, stop_deg + POLAR_ROTATION_DEG]
+
+
 def fig_polar(result, target_names: Sequence[str], pol: str, frequencies_hz: Iterable[float]) -> go.Figure:
     """Polar RCS patterns (dBsm versus angle) at the nearest sample of each chosen frequency."""
     fig = go.Figure()
@@ -193,12 +209,13 @@ def fig_polar(result, target_names: Sequence[str], pol: str, frequencies_hz: Ite
                 hovertemplate="%{theta:.1f}°<br>%{r:.2f} dBsm<extra>%{fullData.name}</extra>"))
     if np.isfinite(rmin):
         lo = 10 * np.floor(max(rmin, rmax - 60) / 10)
-        fig.update_polars(radialaxis={"range": [lo, 10 * np.ceil(rmax / 10)], "ticksuffix": " dB",
+        fig.update_polars(radialaxis={"range": [lo, 10 * np.ceil(rmax / 10)], "ticksuffix": " dBsm",
                                       "gridcolor": "#e6e9ee", "angle": 90, "tickangle": 90},
-                          angularaxis={"direction": "counterclockwise", "rotation": 90, "gridcolor": "#e6e9ee"})
+                          angularaxis={"direction": "counterclockwise", "rotation": POLAR_ROTATION_DEG,
+                                       "gridcolor": "#e6e9ee"})
     if np.isfinite(amin) and amax - amin < 300:  # a partial turn: show only the measured sector
         pad = max(1.0, 0.05 * (amax - amin))
-        fig.update_polars(sector=[amin - pad, amax + pad])
+        fig.update_polars(sector=polar_sector(amin - pad, amax + pad))
     return _base_layout(fig, f"Polar RCS patterns (dBsm), {pol}", height=560)
 
 
@@ -290,7 +307,10 @@ def campaign_sweeps(campaign, target: str | None = None, pol: str | None = None,
     ip = cube.polarizations.index(pol)
     ia = _nearest(np.abs(_wrap(cube.angles_deg - angle_deg)), 0.0)
     raw = cube.data.values[ip, ia].mean(axis=0)
-    bg = campaign.cube(m.background_of(cube.spec).name)
+    bg_spec = m.background_of(cube.spec)
+    if bg_spec is None:  # no background measured: nothing is subtracted
+        return target, pol, float(cube.angles_deg[ia]), raw, raw
+    bg = campaign.cube(bg_spec.name)
     bgi = _nearest(np.abs(_wrap(bg.angles_deg - cube.angles_deg[ia])), 0.0)
     bg_s = bg.data.sel(polarization=pol).values[bgi].mean(axis=0)
     return target, pol, float(cube.angles_deg[ia]), raw, raw - bg_s

@@ -114,6 +114,7 @@ class Manifest:
     band_hz: tuple[float, float] | None
     targets: tuple[TargetSpec, ...]
     text: str = field(repr=False, default="")
+    band_line: int | None = None  # line of the [band] table, for messages about it
 
     @property
     def folder(self) -> Path:
@@ -367,7 +368,8 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
 
     targets = _parse_targets(doc, text, check, chamber)
     manifest = Manifest(path=path, name=name or "", prototype=prototype or "", date=date,
-                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text)
+                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text,
+                        band_line=bline if band_t else None)
     _check_relations(manifest, check)
     return manifest, check.problems
 
@@ -489,8 +491,6 @@ def _parse_shape(t: dict, label: str, check: _Checker, text: str, line: int | No
 def _check_relations(m: Manifest, check: _Checker) -> None:
     names = {t.name: t for t in m.targets}
     backgrounds = m.by_role("background")
-    if m.targets and not backgrounds:
-        check.problem("no background target (role = \"background\"): background subtraction needs one", None)
     for t in m.targets:
         if t.role != "background":
             if t.background is not None:

@@ -41,6 +41,37 @@ def parse_sector(text: str) -> tuple[float, float]:
     return start, stop
 
 
+def describe_sector(angle_deg, sector_deg: tuple[float, float] | None) -> dict:
+    """What a sector holds: ``count`` of angles, ``first_deg`` and ``last_deg`` going
+    counter-clockwise from START to STOP (wrapped angles), ``crosses_180`` and a ``text`` such as
+    "61 angles, -30 to 30 deg" or "13 angles, 150 to -150 deg through 180 deg"."""
+    a = np.asarray(wrap_angle_deg(angle_deg), float)
+    inside = np.sort(a[sector_mask(a, sector_deg)])
+    if inside.size == 0:
+        return {"count": 0, "first_deg": None, "last_deg": None, "crosses_180": False, "text": "no angle"}
+    crosses = False
+    if sector_deg is not None and sector_deg[1] - sector_deg[0] < 360:
+        lo, hi = (float(wrap_angle_deg(x)) for x in sector_deg)
+        if lo > hi:  # runs from lo up through 180 to hi
+            upper, lower = inside[inside >= lo - 1e-9], inside[inside <= hi + 1e-9]
+            inside = np.concatenate([upper, lower])
+            crosses = upper.size > 0 and lower.size > 0
+    first, last = float(inside[0]), float(inside[-1])
+    text = (f"{inside.size} angle{'s' if inside.size != 1 else ''}, {first:g} to {last:g} deg"
+            + (" through 180 deg" if crosses else ""))
+    return {"count": int(inside.size), "first_deg": first, "last_deg": last, "crosses_180": bool(crosses),
+            "text": text}
+
+
+def sector_statistics(values_db, percentiles=(10.0, 90.0)) -> dict:
+    """Median and percentiles (numpy's linear interpolation) of dB values over every point given."""
+    v = np.asarray(values_db, float).ravel()
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return {"median": None, **{f"p{q:g}": None for q in percentiles}}
+    return {"median": float(np.median(v)), **{f"p{q:g}": float(np.percentile(v, q)) for q in percentiles}}
+
+
 def point_bounds(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> np.ndarray:
     """Per-point bound label: lower (subject at floor), upper (baseline at floor), undetermined (both)."""
     out = np.full(np.shape(subject_limited), "none", dtype=object)
@@ -224,6 +255,35 @@ def mounting_offset(angle_deg, pattern_baseline, pattern_subject,
     corr = float(np.dot(shifted, s) / norm) if full_turn and norm > 0 else float(
         y1 / max(np.std(b) * np.std(s), 1e-300))
     return float(np.clip((lags[k] + frac) * step, -max_offset_deg, max_offset_deg)), corr
+
+
+@dataclass(frozen=True)
+class MountingOffset:
+    """A mounting-offset estimate: ``offset_deg`` is None when it is not reliable, ``reason`` says why."""
+
+    offset_deg: float | None
+    correlation: float
+    raw_deg: float
+    reason: str | None
+
+
+def assess_mounting_offset(angle_deg, pattern_baseline, pattern_subject,
+                           max_offset_deg: float = 10.0) -> MountingOffset:
+    """:func:`mounting_offset` with a verdict: no value when the peak sits at the search limit
+    (+/- ``max_offset_deg``: the true peak lies beyond it or there is none) or the patterns
+    correlate less than OFFSET_MIN_CORRELATION (nothing shared to align on)."""
+    raw, corr = mounting_offset(angle_deg, pattern_baseline, pattern_subject, max_offset_deg)
+    a = np.sort(np.asarray(angle_deg, float))
+    step = float(np.median(np.diff(a))) if a.size > 1 else 0.0
+    if a.size < 3:
+        return MountingOffset(None, corr, raw, "fewer than 3 angles")
+    if corr < OFFSET_MIN_CORRELATION:
+        return MountingOffset(None, corr, raw, f"the subject's and baseline's angular patterns correlate too "
+                                               f"weakly ({corr:.2f} < {OFFSET_MIN_CORRELATION:g}) to align on")
+    if abs(raw) >= max_offset_deg - 0.5 * step:
+        return MountingOffset(None, corr, raw, f"the correlation peak lies at the search limit "
+                                               f"(+/-{max_offset_deg:g} deg), so the true offset is not within it")
+    return MountingOffset(raw, corr, raw, None)
 
 
 def resample_angles(angle_src, values, angle_dst, period: bool = True) -> np.ndarray:

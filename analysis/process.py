@@ -16,7 +16,8 @@ import pandas as pd
 import xarray as xr
 
 from . import __version__, calibrate, metrics, references, timedomain
-from .campaign import Campaign, TargetCube, flat_top_problem, wrap_angle_deg
+from .campaign import ECHO_WARNING, Campaign, TargetCube, band_problem, flat_top_problem, wrap_angle_deg
+from .campaign import _check_echo_in_gate as check_echo_in_gate
 from .constants import C0
 from .errors import InputError
 from .manifest import TargetSpec, target_extent_m
@@ -44,6 +45,7 @@ class ProcessSettings:
     kaiser_beta: float | None = None
     gate_overrides: dict[str, dict[str, float]] = field(default_factory=dict)
     coverage_k: float = 2.0
+    percentiles: tuple[float, ...] = (10.0, 90.0)
 
     def as_dict(self) -> dict[str, Any]:
         return {
@@ -55,12 +57,13 @@ class ProcessSettings:
             "band_hz": list(self.band_hz) if self.band_hz else None,
             "window": self.window, "kaiser_beta": self.kaiser_beta,
             "gate_overrides": self.gate_overrides, "coverage_k": self.coverage_k,
+            "percentiles": list(self.percentiles),
         }
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> "ProcessSettings":
         d = dict(d)
-        for key in ("sector_deg", "band_hz"):
+        for key in ("sector_deg", "band_hz", "percentiles"):
             if d.get(key) is not None:
                 d[key] = tuple(d[key])
         return cls(**{k: v for k, v in d.items() if k in cls.__dataclass_fields__})
@@ -152,10 +155,23 @@ class ProcessingResult:
         cols["bound"] = pd.Categorical.from_codes(cols["bound"], categories=BOUND_ORDER)
         return pd.DataFrame(cols, columns=REDUCTION_COLUMNS)
 
+    @property
+    def failed_checks(self) -> list[dict]:
+        """Check rows that failed their tolerance."""
+        return [c for c in self.checks if not c.get("passed", True)]
+
     def summary(self) -> dict[str, Any]:
+        failed = [f"{c['target']} {c['polarization']}" for c in self.failed_checks]
         return {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
+                "check_failed": bool(failed), "failed_checks": failed,
                 "settings": self.settings, "checks": self.checks, "floor": self.floor,
                 "metrics": self.metrics, "warnings": self.warnings}
+
+
+def check_failure_text(c: dict) -> str:
+    """The one-line statement of a failed check target (CLI, summary.json warnings, report, dashboard)."""
+    return (f"CHECK TARGET FAILED: {c['target']} {c['polarization']}: max error {c['max_error_db']:.2f} dB > "
+            f"tolerance {c['tolerance_db']:g} dB: the calibration or the gate is suspect")
 
 
 POLARIZATION_ORDER = ["HH", "VV", "HV", "VH"]
@@ -175,7 +191,10 @@ def _gate_kwargs(campaign: Campaign, settings: ProcessSettings) -> dict[str, Any
 def _subtracted(campaign: Campaign, cube: TargetCube, settings: ProcessSettings, gate: dict, center, span):
     """Background-subtracted sweeps, repeats kept: (pol, angle, repeat, f), and the background repeats."""
     f = campaign.frequency_hz
-    bg = campaign.cube(campaign.manifest.background_of(cube.spec).name)
+    bg_spec = campaign.manifest.background_of(cube.spec)
+    if bg_spec is None:  # no background measured: gating alone (README, The processing chain)
+        return cube.data.values, None
+    bg = campaign.cube(bg_spec.name)
     bg_data = bg.data.sel(polarization=cube.polarizations).values
     bg_mean = bg_data.mean(axis=2)
     bg_at = calibrate.background_at_angles(bg_mean, bg.angles_deg, cube.angles_deg)[:, :, None, :]
@@ -224,6 +243,10 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     offset_est, offset_ref = (None, None)
     if settings.auto_gate:
         offset_est, offset_ref = estimate_offset_m(campaign, settings)
+        # the manifest's gates were checked for echoes outside them; check the measured ones instead
+        warnings = [w for w in warnings if ECHO_WARNING not in w]
+        check_echo_in_gate(m, campaign.cubes, campaign.frequency_hz, warnings.append,
+                           lambda spec: _gate_of(campaign, spec, settings, offset_est))
         tick("auto-gate")
 
     # ---- gate every non-background target, average repeats
@@ -241,12 +264,17 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         else:
             g_mean = timedomain.time_gate(f, d[:, :, 0, :], center, span, **gate)
             var_mean, n_rep = None, 1
-        key = (bg.name, tuple(cube.polarizations), center, span)
-        if key not in noise_cache:  # targets sharing a background and a gate share its floor
-            noise_cache[key] = calibrate.gated_noise_power(f, bg.data.sel(polarization=cube.polarizations).values,
-                                                           center, span, **gate)
-        noise, how = noise_cache[key]
-        resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
+        if bg is None:  # the floor from the target's own sweeps: their repeats, else their range profile
+            noise, how = calibrate.gated_noise_power(f, cube.data.values, center, span, **gate)
+            how = f"no background: {how.replace('background', 'target')}"
+            resid = noise / n_rep
+        else:
+            key = (bg.name, tuple(cube.polarizations), center, span)
+            if key not in noise_cache:  # targets sharing a background and a gate share its floor
+                noise_cache[key] = calibrate.gated_noise_power(
+                    f, bg.data.sel(polarization=cube.polarizations).values, center, span, **gate)
+            noise, how = noise_cache[key]
+            resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
         gated[name] = {"cube": cube, "g": g_mean, "var": var_mean, "noise": resid, "floor_method": how,
                        "center": center, "span": span}
         tick(f"gate {name}")
@@ -262,10 +290,17 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     band = settings.band_hz or m.band_hz
     band_mask = valid.copy()
     if band:
+        from_flag = settings.band_hz is not None
+        if band[0] >= band[1]:
+            raise InputError(f"--band-ghz {band[0] / 1e9:g}:{band[1] / 1e9:g}: START must be below STOP")
         band_mask &= (f >= band[0] - 1e-6) & (f <= band[1] + 1e-6)
-        if not band_mask.any():
-            raise InputError(f"reporting band {band[0] / 1e9:g}-{band[1] / 1e9:g} GHz lies outside the valid band "
-                             f"{f[valid][0] / 1e9:.4g}-{f[valid][-1] / 1e9:.4g} GHz", m.path)
+        valid_hz = (float(f[valid][0]), float(f[valid][-1])) if valid.any() else None
+        err, warn_band = band_problem(band, f, valid_hz, "--band-ghz" if from_flag else "[band]")
+        if err or not band_mask.any():
+            raise InputError(err or f"reporting band {band[0] / 1e9:g}-{band[1] / 1e9:g} GHz holds no valid frequency",
+                             None if from_flag else m.path, None if from_flag else m.band_line)
+        if warn_band and (from_flag or not any(warn_band in w for w in warnings)):
+            warnings.append(warn_band if from_flag else str(InputError(warn_band, m.path, m.band_line)))
 
     # ---- calibrated targets
     targets: dict[str, TargetResult] = {}
@@ -290,6 +325,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
     checks = _checks(campaign, targets, valid, settings)
     _check_specular_warnings(campaign, f[valid], warnings)
+    warnings.extend(check_failure_text(c) for c in checks if not c["passed"])
     floor_summary = {}
     for pol in ("HH", "VV", "HV", "VH"):
         vals = [10 * np.log10(t.floor.sel(polarization=pol).values[valid]) for t in targets.values()
@@ -314,6 +350,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         "valid_band_hz": [float(f[valid][0]), float(f[valid][-1])],
         "reporting_band_hz": [float(f[band_mask][0]), float(f[band_mask][-1])],
         "sector_deg": list(settings.sector_deg) if settings.sector_deg else None,
+        "sector_contents": metric_rows[0]["sector_contents"] if metric_rows else None,
         "threshold_db": settings.threshold_db,
         "floor_margin_db": settings.floor_margin_db,
         "check_tolerance_db": settings.check_tolerance_db,
@@ -512,14 +549,17 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
             b_sig = b_all.values[idx]
             pat_b = 10 * np.log10(b_sig[:, band_mask].mean(axis=1))
             pat_s = 10 * np.log10(s_sig[:, band_mask].mean(axis=1))
-            offset, corr = metrics.mounting_offset(s_angles, pat_b, pat_s)
-            reliable = corr >= metrics.OFFSET_MIN_CORRELATION
+            mo = metrics.assess_mounting_offset(s_angles, pat_b, pat_s)
+            offset, corr, reliable = mo.offset_deg, mo.correlation, mo.offset_deg is not None
             s_use = s_sig
             s_rep = None if t.rep_rel_u is None else t.rep_rel_u.sel(polarization=pol).values
             aligned = settings.align_angles and reliable and offset != 0.0
             if settings.align_angles and not reliable:
-                warnings.append(f"{name} {pol}: mounting offset not applied: its angular pattern and "
-                                f"{t.baseline}'s correlate too weakly ({corr:.2f}) to align on")
+                warnings.append(f"{name} {pol}: --align-angles did nothing: no reliable mounting offset against "
+                                f"{t.baseline} ({mo.reason})")
+            elif settings.align_angles and not aligned:
+                warnings.append(f"{name} {pol}: --align-angles did nothing: the mounting offset against "
+                                f"{t.baseline} is 0 deg")
             if aligned:
                 s_use = metrics.resample_angles(s_angles, s_sig, np.asarray(s_angles) + offset)
                 if s_rep is not None:
@@ -540,6 +580,16 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                 raise InputError(f"sector {settings.sector_deg[0]:g}:{settings.sector_deg[1]:g} deg holds no "
                                  f"measured angle of {name}")
             sel = np.ix_(sec, band_mask)
+            sector_info = metrics.describe_sector(s_angles, settings.sector_deg)
+            mismatch = None
+            if abs(t.gate["span_m"] - base.gate["span_m"]) > 1e-9 or t.gate.get("window") != base.gate.get("window"):
+                mismatch = (f"{name} and its baseline {t.baseline} were gated differently (span "
+                            f"{t.gate['span_m']:g} m against {base.gate['span_m']:g} m"
+                            + (f", window {t.gate.get('window')} against {base.gate.get('window')}"
+                               if t.gate.get("window") != base.gate.get("window") else "")
+                            + "): the reduction mixes two gate responses")
+                if mismatch not in warnings:
+                    warnings.append(mismatch)
             fb = f[band_mask]
             band_red = metrics.band_reduction_db(b_b[sel], s_b[sel])
             curve = metrics.sector_curve_db(b_b[sel], s_b[sel])
@@ -563,8 +613,20 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                 "mounting_offset_deg": offset,
                 "mounting_offset_correlation": corr,
                 "mounting_offset_reliable": bool(reliable),
+                "mounting_offset_note": mo.reason,
                 "angles_aligned": bool(aligned),
                 "check_error_db": max(check_err) if check_err else None,
+                "band_hz": [float(fb[0]), float(fb[-1])],
+                "sector_deg": list(settings.sector_deg) if settings.sector_deg else None,
+                "sector_angles": sector_info["count"],
+                "sector_range_deg": [sector_info["first_deg"], sector_info["last_deg"]],
+                "sector_crosses_180": sector_info["crosses_180"],
+                "sector_contents": sector_info["text"],
+                "sector_reduction_db": metrics.sector_statistics(red[sel], settings.percentiles),
+                "sector_rcs_dbsm": metrics.sector_statistics(10 * np.log10(s_use[sel]), settings.percentiles),
+                "sector_baseline_rcs_dbsm": metrics.sector_statistics(10 * np.log10(b_sig[sel]),
+                                                                      settings.percentiles),
+                "gate_mismatch": mismatch,
                 "sector_curve_db": [float(x) for x in curve],
                 "sector_curve_frequency_hz": [float(x) for x in fb],
             })

@@ -298,6 +298,14 @@ def dihedral_amplitude(frequency_hz, angle_deg, fold_m, face_m, roll_deg, polari
 
 
 # ----------------------------------------------------------------------------- trihedral
+PEAK_ONLY_SHAPES = ("trihedral",)  # models that give their peak value at every angle
+
+
+def shape_is_angle_independent_peak(spec: dict | None) -> bool:
+    """True for a shape whose model is its peak value only, the same at every angle (trihedral)."""
+    return bool(spec) and spec.get("shape") in PEAK_ONLY_SHAPES
+
+
 def trihedral_amplitude(frequency_hz, angle_deg, edge_m, kind="triangular", polarization="VV") -> np.ndarray:
     """Trihedral corner reflector, peak value only (angle-independent), referred to its apex.
 

@@ -1,7 +1,8 @@
 """Self-contained HTML report of a processing run (one file, opens offline, prints).
 
-``render_report(result, campaign) -> str``: plotly.js is inlined once in the page head, each
-figure is a div plus a ``Plotly.newPlot`` call on its JSON; no tag loads anything from any
+``render_report(result, campaign) -> str``: plotly.js is embedded once in the page head
+(gzip-compressed, base64), each figure is a div and its JSON, drawn by the page's loader when it
+scrolls into view (all of them before printing); no tag loads anything from any
 address (no ``<script src>``, ``<link href>``, images or CSS ``url()``). The summary table cells
 carry their raw values in ``data-value`` (repr of the float in summary.json) beside the
 printed text (dB to two decimals, GHz to three, MHz to one).
@@ -12,6 +13,7 @@ which drives a local Chromium) and a PDF of the whole report (Chromium's headles
 
 from __future__ import annotations
 
+import functools
 import html
 import json
 import math
@@ -89,6 +91,54 @@ def reduction_text(value, bound: str) -> str:
     return f"{BOUND_WORDS[bound]} {text}" if bound in BOUND_WORDS and text != "—" else text
 
 
+def offset_text(m: dict) -> str:
+    """The mounting offset, or 'none' and why when it is not reliable (no number is printed then)."""
+    if m.get("mounting_offset_deg") is None:
+        return "none" + (f" ({m['mounting_offset_note']})" if m.get("mounting_offset_note") else "")
+    return _fmt(m["mounting_offset_deg"], 2) + (" (aligned)" if m.get("angles_aligned") else "")
+
+
+def sector_text(settings: dict) -> str:
+    """'all measured angles (72 angles, -175 to 180 deg)' or '-30 to 30 deg (61 angles, -30 to 30 deg)'."""
+    sector = settings.get("sector_deg")
+    text = "all measured angles" if not sector else f"{sector[0]:g} to {sector[1]:g} deg"
+    return text + (f" ({settings['sector_contents']})" if settings.get("sector_contents") else "")
+
+
+def check_alarm(result) -> str:
+    """A prominent box naming every failed check target (empty when all passed)."""
+    from .process import check_failure_text
+
+    failed = [c for c in result.checks if not c.get("passed", True)]
+    if not failed:
+        return ""
+    items = "".join(f"<li>{_esc(check_failure_text(c))}</li>" for c in failed)
+    return (f'<div id="check-failed" class="alarm" role="alert"><p><strong>Check target failed.</strong> The '
+            f'results below rest on a calibration that a known target does not confirm.</p><ul>{items}</ul></div>')
+
+
+def sector_statistics_table(result) -> str:
+    """Median and percentiles over the band and sector of the per-point reduction and RCS, per metrics row."""
+    rows = [m for m in result.metrics if m.get("sector_reduction_db")]
+    if not rows:
+        return ""
+    keys = [k for k in rows[0]["sector_reduction_db"]]
+    head = "".join(f'<th scope="col">{_esc(x)}</th>' for x in ["subject", "pol.", "quantity"] + keys)
+    body = []
+    for m in rows:
+        for key, label in (("sector_reduction_db", "reduction (dB)"), ("sector_rcs_dbsm", "RCS of subject (dBsm)"),
+                           ("sector_baseline_rcs_dbsm", "RCS of baseline (dBsm)")):
+            stats = m.get(key) or {}
+            cells = "".join(_td(f"{key}.{k}", stats.get(k), _fmt(stats.get(k), 2)) for k in keys)
+            body.append(f"<tr>{_td('subject', m['subject'], m['subject'], 'text')}"
+                        f"{_td('polarization', m['polarization'], m['polarization'], 'text')}"
+                        f"<td>{_esc(label)}</td>{cells}</tr>")
+    return ('<h3>Sector statistics</h3><p>Median and percentiles over every (angle, frequency) point of the band '
+            'and sector; floor-limited points enter at floor + margin.</p>'
+            f'<table id="sector-statistics" class="data compact"><thead><tr>{head}</tr></thead>'
+            f'<tbody>{"".join(body)}</tbody></table>')
+
+
 def floor_note(m: dict) -> str:
     n, total = m.get("floor_limited_points") or 0, m.get("points") or 0
     if not n:
@@ -132,9 +182,7 @@ def summary_table(result) -> str:
             _td("fractional_bandwidth", m["fractional_bandwidth"], _fmt(m["fractional_bandwidth"], 1, 0.01)),
             _td("worst_angle_deg", m["worst_angle_deg"], _fmt(m["worst_angle_deg"], 1)),
             _td("worst_angle_reduction_db", m["worst_angle_reduction_db"], _fmt(m["worst_angle_reduction_db"], 2)),
-            _td("mounting_offset_deg", m.get("mounting_offset_deg"), _fmt(m.get("mounting_offset_deg"), 2)
-                + (" (aligned)" if m.get("angles_aligned") else "")
-                + ("" if m.get("mounting_offset_reliable", True) else " (not reliable: patterns share too little)")),
+            _td("mounting_offset_deg", m.get("mounting_offset_deg"), offset_text(m)),
             _td("floor_limited_points", m.get("floor_limited_points"), floor_note(m), "text"),
         ]
         rows.append(f'<tr data-bound="{_esc(bound)}">{"".join(cells)}</tr>')
@@ -143,6 +191,14 @@ def summary_table(result) -> str:
                     f'metrics.</td></tr>')
     return (f'<div class="scroll"><table id="summary-table" class="data summary"><thead><tr>{head}</tr></thead>'
             f'<tbody>{"".join(rows)}</tbody></table></div>')
+
+
+def mismatch_note(result) -> str:
+    """Rows whose subject and baseline were gated differently, said beside the table."""
+    notes = sorted({m["gate_mismatch"] for m in result.metrics if m.get("gate_mismatch")})
+    if not notes:
+        return ""
+    return '<ul id="gate-mismatch" class="warnings">' + "".join(f"<li>{_esc(n)}</li>" for n in notes) + "</ul>"
 
 
 def checks_table(result) -> str:
@@ -231,9 +287,10 @@ def provenance(result, campaign) -> str:
         + '<h3>Calibration references</h3><table id="references-table" class="data"><thead><tr>'
           '<th scope="col">pol.</th><th scope="col">reference</th><th scope="col">shape</th>'
           f'<th scope="col">method</th></tr></thead><tbody>{refs}</tbody></table>'
-        + f'<h3>Files ({len(s.get("files", {}))}, SHA-256)</h3><table id="files-table" class="data files"><thead><tr>'
+        + f'<details id="files-details"><summary>Files ({len(s.get("files", {}))}, SHA-256): show</summary>'
+          f'<table id="files-table" class="data files"><thead><tr>'
           f'<th scope="col">file (relative to the manifest)</th><th scope="col">SHA-256</th></tr></thead>'
-          f"<tbody>{files}</tbody></table>"
+          f"<tbody>{files}</tbody></table></details>"
         + manifest_block)
 
 
@@ -353,13 +410,25 @@ def _range_profile_spec(result, campaign) -> FigureSpec:
                                     f"subtracted, with the gate (right axis).", fig)
 
 
+def figure_json(figure) -> str:
+    """A figure (plotly Figure or plain dict) as JSON safe inside a <script> element."""
+    import plotly.io as pio
+
+    text = figure.to_json() if hasattr(figure, "to_json") else pio.to_json(figure, validate=False)
+    return text.replace("</", "<\\/")  # JSON allows "\/"; the element cannot end early
+
+
 def _figure_html(spec: FigureSpec) -> str:
+    """A figure's div and its JSON; the page's loader draws it when it scrolls into view (or on print)."""
     if spec.figure is None:
         return (f'<figure class="figure missing" id="{spec.id}-box"><p class="note" id="{spec.id}">{_esc(spec.note)}'
                 f"</p><figcaption>{_esc(spec.caption)}</figcaption></figure>")
-    div = spec.figure.to_html(full_html=False, include_plotlyjs=False, include_mathjax=False,
-                              div_id=spec.id, config=PLOTLY_CONFIG)
-    return f'<figure class="figure" id="{spec.id}-box">{div}<figcaption>{_esc(spec.caption)}</figcaption></figure>'
+    layout = spec.figure["layout"] if isinstance(spec.figure, dict) else spec.figure.layout
+    height = (layout.get("height") if isinstance(layout, dict) else layout.height) or 450
+    return (f'<figure class="figure" id="{spec.id}-box"><div id="{spec.id}" class="plotly-graph-div lazy-figure" '
+            f'style="height:{int(height)}px; width:100%;"></div>'
+            f'<script type="application/json" class="figure-data" data-for="{spec.id}">{figure_json(spec.figure)}'
+            f"</script><figcaption>{_esc(spec.caption)}</figcaption></figure>")
 
 
 # --------------------------------------------------------------------------- page
@@ -394,6 +463,12 @@ pre { background: var(--band); padding: 10px 12px; overflow-x: auto; border: 1px
 .warnings li { color: var(--warn); }
 figure.figure { margin: 18px 0 26px; page-break-inside: avoid; break-inside: avoid; }
 figcaption { color: var(--muted); font-size: 0.88em; margin-top: 4px; }
+.alarm { border: 2px solid #b3261e; background: #fdecea; color: #7a1a14; padding: 6px 14px; margin: 10px 0 16px; }
+.alarm li { color: #7a1a14; font-weight: 600; }
+details#files-details summary { cursor: pointer; color: var(--accent); }
+table.summary { table-layout: fixed; width: 100%; }
+table.summary th, table.summary td { padding: 4px 4px; overflow-wrap: anywhere; hyphens: auto; }
+table.summary td.num { white-space: normal; }
 .caution { border-left: 4px solid var(--warn); background: #fbf5ef; padding: 4px 14px; }
 footer { color: var(--muted); font-size: 0.85em; margin-top: 40px; border-top: 1px solid var(--rule); padding-top: 8px; }
 @media print {
@@ -413,21 +488,57 @@ footer { color: var(--muted); font-size: 0.85em; margin-top: 40px; border-top: 1
 @page { margin: 14mm; }
 """
 
-# Resize figures to the printed width before printing, back to the window afterwards.
-PRINT_JS = """
+# The page's loader: unpack the embedded plotly.js (gzip, base64: a third of its size), then draw
+# each figure when it comes near the window, every figure before printing or when the address
+# ends in #draw-all (the PDF export). Figures are resized to the printed width for printing.
+LOADER_JS = """
 (function () {
-  function each(fn) { document.querySelectorAll('.plotly-graph-div').forEach(fn); }
-  window.addEventListener('beforeprint', function () { each(function (d) { Plotly.relayout(d, {width: %d}); }); });
-  window.addEventListener('afterprint', function () { each(function (d) { Plotly.relayout(d, {width: null, autosize: true}); }); });
+  var CONFIG = %s, PRINT_WIDTH = %d, divs = [];
+  function draw(div) {
+    if (div.getAttribute('data-drawn')) { return; }
+    div.setAttribute('data-drawn', '1');
+    var spec = JSON.parse(document.querySelector('script.figure-data[data-for="' + div.id + '"]').textContent);
+    Plotly.newPlot(div, spec.data, spec.layout, CONFIG);
+  }
+  function drawAll() { divs.forEach(draw); }
+  function start() {
+    divs = Array.prototype.slice.call(document.querySelectorAll('.lazy-figure'));
+    window.cloakrcsDrawAll = drawAll;
+    if (location.hash === '#draw-all' || !('IntersectionObserver' in window)) { drawAll(); }
+    else {
+      var io = new IntersectionObserver(function (entries) {
+        entries.forEach(function (e) { if (e.isIntersecting) { io.unobserve(e.target); draw(e.target); } });
+      }, {rootMargin: '800px 0px'});
+      divs.forEach(function (d) { io.observe(d); });
+    }
+    window.addEventListener('beforeprint', function () {
+      drawAll(); divs.forEach(function (d) { Plotly.relayout(d, {width: PRINT_WIDTH}); }); });
+    window.addEventListener('afterprint', function () {
+      divs.forEach(function (d) { Plotly.relayout(d, {width: null, autosize: true}); }); });
+    document.documentElement.setAttribute('data-plotly', 'ready');
+  }
+  var b64 = document.getElementById('plotly-bundle').textContent.replace(/\\s+/g, '');
+  var raw = atob(b64), bytes = new Uint8Array(raw.length);
+  for (var i = 0; i < raw.length; i++) { bytes[i] = raw.charCodeAt(i); }
+  new Response(new Blob([bytes]).stream().pipeThrough(new DecompressionStream('gzip'))).text().then(function (js) {
+    var tag = document.createElement('script');
+    tag.textContent = js;
+    document.head.appendChild(tag);
+    start();
+  });
 })();
-""" % PRINT_WIDTH_PX
+"""
 
 
-def _plotly_js() -> str:
+@functools.lru_cache(maxsize=1)
+def plotly_bundle_b64() -> str:
+    """plotly.js of the installed plotly, gzip-compressed (fixed mtime: the same bytes every time), base64."""
+    import base64
+    import gzip
+
     from plotly.offline import get_plotlyjs
 
-    js = get_plotlyjs()
-    return js.replace("</script", "<\\/script")  # cannot close the inline tag early
+    return base64.b64encode(gzip.compress(get_plotlyjs().encode("utf-8"), 9, mtime=0)).decode("ascii")
 
 
 def render_report(result, campaign=None) -> str:
@@ -450,11 +561,15 @@ def render_report(result, campaign=None) -> str:
     thr = s.get("threshold_db")
     sections = [
         ("summary", "Summary",
-         f'<p>Reduction = 10 log10(σ<sub>baseline</sub> / σ<sub>subject</sub>), positive = less scattering; '
-         f'band {_esc(_ghz_range(s.get("reporting_band_hz")))}, bandwidth threshold {thr:g} dB. '
+         check_alarm(result)
+         + f'<p id="summary-scope"><strong>Band</strong> {_esc(_ghz_range(s.get("reporting_band_hz")))}; '
+           f'<strong>sector</strong> {_esc(sector_text(s))}; bandwidth threshold {thr:g} dB.</p>'
+         f'<p>Reduction = 10 log10(σ<sub>baseline</sub> / σ<sub>subject</sub>), positive = less scattering. '
          f'Floor-limited values are bounds (see Uncertainty); "≥" marks a bandwidth that reaches a band edge '
-         f'(the true one may be wider). Mounting offset: subject minus baseline, from the angular patterns.</p>'
-         + summary_table(result) + "<h3>Check targets</h3>" + checks_table(result)
+         f'(the true one may be wider). Mounting offset: subject minus baseline, from the angular patterns; '
+         f'"none" when it is not reliable.</p>'
+         + summary_table(result) + mismatch_note(result) + sector_statistics_table(result)
+         + "<h3>Check targets</h3>" + checks_table(result)
          + "<h3>Noise floor</h3>" + floor_table(result) + "<h3>Warnings</h3>" + warnings),
         ("rcs", "RCS versus frequency", section_figs("rcs")),
         ("polar", "Polar patterns", section_figs("polar")),
@@ -473,12 +588,13 @@ def render_report(result, campaign=None) -> str:
         "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
         f"<meta name=\"generator\" content=\"cloakrcs {_esc(s.get('software_version'))}\">"
         f"<title>{_esc(title)}</title><style>{CSS}</style>\n"
-        f"<script id=\"plotly-bundle\">{_plotly_js()}</script>\n</head><body><main>"
+        f"<script id=\"plotly-bundle\" type=\"application/gzip+base64\">{plotly_bundle_b64()}</script>\n"
+        f"</head><body><main>"
         f"<header><h1>{_esc(title)}</h1><p class=\"meta\">{_esc(meta)}</p>"
         f"<nav><ol>{nav}</ol></nav></header>{body}"
-        "<footer>Self-contained report: plotly.js is embedded; the page loads nothing from any network "
-        "address.</footer></main>"
-        f"<script>{PRINT_JS}</script></body></html>\n")
+        "<footer>Self-contained report: plotly.js is embedded (compressed) and each figure is drawn when it "
+        "scrolls into view; the page loads nothing from any network address.</footer></main>"
+        f"<script>{LOADER_JS % (json.dumps(PLOTLY_CONFIG), PRINT_WIDTH_PX)}</script></body></html>\n")
 
 
 # --------------------------------------------------------------------------- files and static export
@@ -534,7 +650,7 @@ def export_pdf(html_path, pdf_path, timeout_s: float = 180.0) -> Path:
                "--disable-background-networking", "--disable-component-update", "--disable-sync",
                f"--user-data-dir={profile}", f"--window-size={PRINT_WIDTH_PX + 40},1000",
                "--virtual-time-budget=30000", "--run-all-compositor-stages-before-draw",
-               "--no-pdf-header-footer", f"--print-to-pdf={pdf}", Path(html_path).resolve().as_uri()]
+               "--no-pdf-header-footer", f"--print-to-pdf={pdf}", Path(html_path).resolve().as_uri() + "#draw-all"]
         if hasattr(os, "geteuid") and os.geteuid() == 0:
             cmd.insert(1, "--no-sandbox")
         try:

@@ -151,7 +151,7 @@ def _alembic_config():
     return cfg
 
 
-SCHEMA_REVISION = "0001"  # newest migration in analysis/migrations/versions (a test keeps them equal)
+SCHEMA_REVISION = "i13a"  # newest migration in analysis/migrations/versions (a test keeps them equal)
 
 
 def _stored_revision(engine) -> str | None:
@@ -331,7 +331,9 @@ def _ensure_campaign(s: Session, campaign) -> S.Campaign:
         return found
     m = campaign.manifest
     proto = _get_prototype(s, m.prototype)
+    shared = _campaign_sharing_files(s, campaign)
     row = S.Campaign(prototype_id=proto.id, name=m.name, date=m.date, fingerprint=fp, manifest_text=m.text,
+                     linked_campaign_id=shared[0] if shared else None,
                      manifest_path=str(m.path),
                      chamber={"range_m": m.chamber.range_m, "offset_m": m.chamber.offset_m,
                               "bistatic_deg": m.chamber.bistatic_deg},
@@ -359,6 +361,37 @@ def _ensure_campaign(s: Session, campaign) -> S.Campaign:
                 angle_index=ia, repeat_index=ir))
     s.flush()
     return row
+
+
+def _campaign_sharing_files(s: Session, campaign) -> tuple[int, str, int, int] | None:
+    """(id, name, files shared, files of the campaign) of the stored campaign sharing most of these raw files."""
+    per_file = list(campaign.file_hashes.values())
+    hashes = sorted(set(per_file))
+    found: dict[int, set] = {}
+    for i in range(0, len(hashes), 500):
+        chunk = hashes[i:i + 500]
+        for cid, h in s.execute(select(S.CampaignFile.campaign_id, S.CampaignFile.sha256)
+                                .where(S.CampaignFile.sha256.in_(chunk)).distinct()):
+            found.setdefault(cid, set()).add(h)
+    if not found:
+        return None
+    shared = {cid: sum(h in hs for h in per_file) for cid, hs in found.items()}
+    cid = max(sorted(shared), key=lambda c: shared[c])
+    return cid, s.get(S.Campaign, cid).name, shared[cid], len(per_file)
+
+
+def files_already_stored(url: str | None, campaign) -> dict | None:
+    """When a campaign not yet stored shares raw files with a stored one: ``{campaign_id, campaign,
+    files, of}`` (the stored campaign sharing most, how many files it shares, of how many); else None."""
+    fp = campaign_fingerprint(campaign)
+    with open_store(url)() as s:
+        if s.scalar(select(S.Campaign.id).where(S.Campaign.fingerprint == fp)) is not None:
+            return None
+        found = _campaign_sharing_files(s, campaign)
+    if found is None:
+        return None
+    cid, name, n, total = found
+    return {"campaign_id": cid, "campaign": name, "files": n, "of": total}
 
 
 def _add_run(s: Session, crow: S.Campaign, campaign, result) -> S.ProcessingRun:
@@ -444,7 +477,8 @@ def list_runs(url: str | None, prototype: str | None = None) -> list[dict]:
             q = q.where(S.Prototype.name == prototype)
         return [{"run_id": r.id, "campaign_id": c.id, "campaign": c.name, "prototype": p.name,
                  "date": c.date.isoformat() if c.date else None, "processed_at": _utc(r.processed_at).isoformat(),
-                 "software_version": r.software_version, "manifest": c.manifest_path}
+                 "software_version": r.software_version, "manifest": c.manifest_path,
+                 "linked_campaign_id": c.linked_campaign_id}
                 for r, c, p in s.execute(q).all()]
 
 
@@ -514,13 +548,19 @@ def history(url: str | None, prototype: str | None = None, all_runs: bool = Fals
         for run_id, pol, err in s.execute(select(S.CheckRow.run_id, S.CheckRow.polarization, S.CheckRow.max_error_db)):
             if err is not None:
                 checks[(run_id, pol)] = max(checks.get((run_id, pol), 0.0), abs(err))
+        pins = {rid: run_id for rid, run_id in s.execute(select(S.Revision.id, S.Revision.current_run_id))
+                if run_id is not None}
+        pinned_runs = set(s.scalars(select(S.ProcessingRun.id).where(S.ProcessingRun.id.in_(set(pins.values())))))
+        pins = {rid: run_id for rid, run_id in pins.items() if run_id in pinned_runs}  # deleted runs: newest
         tdates = dict(s.execute(select(S.CampaignTarget.id, S.CampaignTarget.date)).all())
         tdate_of = {(cid, name): tdates[tid] for tid, cid, name in
                     s.execute(select(S.CampaignTarget.id, S.CampaignTarget.campaign_id, S.CampaignTarget.name))}
     out = []
     far = dt.date.max
     for m, run, c, p, rev in rows:
-        if not all_runs and latest.get(c.id) != run.id:
+        pinned = pins.get(m.revision_id)
+        current = run.id == pinned if pinned is not None else latest.get(c.id) == run.id
+        if not all_runs and not current:
             continue
         measured = tdate_of.get((c.id, m.subject)) or c.date
         rev_date = rev.date if rev is not None and rev.date is not None else measured
@@ -534,6 +574,8 @@ def history(url: str | None, prototype: str | None = None, all_runs: bool = Fals
             "bandwidth_stop_hz": m.bandwidth_stop_hz,
             "worst_angle_deg": m.worst_angle_deg, "worst_angle_reduction_db": m.worst_angle_reduction_db,
             "bound": m.bound, "check_error_db": checks.get((run.id, m.polarization)),
+            "current": bool(current), "current_chosen": pinned is not None,
+            **settings_columns(run.settings or {}, m.subject, m.baseline),
         }
         key = (p.name, rev_date or far, natural_key(m.revision), measured or far, c.name, _pol_key(m.polarization),
                m.subject, run.id)
@@ -549,7 +591,69 @@ def _latest_rows(rows: list[dict], revision: str) -> dict[str, dict]:
     return {r["polarization"]: r for r in mine}
 
 
-def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = None) -> list[dict]:
+COMPARED_SETTINGS = (("band_ghz", "band (GHz)"), ("sector_deg", "sector (deg)"), ("window", "window"),
+                     ("kaiser_beta", "Kaiser beta"), ("pad_factor", "zero padding"),
+                     ("edge_fraction", "gate edge fraction"), ("subject_gate_span_m", "subject gate span (m)"),
+                     ("baseline_gate_span_m", "baseline gate span (m)"), ("threshold_db", "threshold (dB)"),
+                     ("floor_margin_db", "floor margin (dB)"), ("drift_correction", "drift correction"),
+                     ("align_angles", "angle alignment"), ("auto_gate", "auto gate"), ("coverage_k", "coverage k"))
+
+
+def comparison_settings(settings: dict, subject: str, baseline: str) -> dict:
+    """The processing settings a metric depends on, in comparable form (README, Results store and revisions)."""
+    band = settings.get("reporting_band_hz")
+    gates = settings.get("gates") or {}
+    window = settings.get("window")
+
+    def span(name):
+        g = gates.get(name)
+        return None if not g else round(float(g["span_m"]), 6)
+
+    return {"band_ghz": None if not band else [round(band[0] / 1e9, 4), round(band[1] / 1e9, 4)],
+            "sector_deg": "all" if not settings.get("sector_deg") else [float(x) for x in settings["sector_deg"]],
+            "window": window, "kaiser_beta": settings.get("kaiser_beta") if window == "kaiser" else None,
+            "pad_factor": settings.get("pad_factor"), "edge_fraction": settings.get("edge_fraction"),
+            "subject_gate_span_m": span(subject), "baseline_gate_span_m": span(baseline),
+            "threshold_db": settings.get("threshold_db"), "floor_margin_db": settings.get("floor_margin_db"),
+            "drift_correction": bool(settings.get("drift_correction")),
+            "align_angles": bool(settings.get("align_angles")), "auto_gate": bool(settings.get("auto_gate")),
+            "coverage_k": settings.get("coverage_k")}
+
+
+def _show(value) -> str:
+    if isinstance(value, list):
+        return ":".join(f"{v:g}" for v in value)
+    if isinstance(value, bool):
+        return "on" if value else "off"
+    return "-" if value is None else (f"{value:g}" if isinstance(value, float) else str(value))
+
+
+def settings_label(comp: dict) -> str:
+    """A short text of the settings that most often differ: band, sector, window, gate spans, threshold."""
+    win = comp["window"] + (f" beta {comp['kaiser_beta']:g}" if comp.get("kaiser_beta") is not None else "")
+    spans = {comp["subject_gate_span_m"], comp["baseline_gate_span_m"]}
+    return (f"band {_show(comp['band_ghz'])} GHz, sector {_show(comp['sector_deg'])} deg, {win}, gate "
+            f"{'/'.join(_show(x) for x in sorted(spans, key=lambda v: -1 if v is None else v))} m, "
+            f"threshold {_show(comp['threshold_db'])} dB")
+
+
+def settings_columns(settings: dict, subject: str, baseline: str) -> dict:
+    """History columns describing how a metric was computed: band, sector, settings key and label."""
+    comp = comparison_settings(settings, subject, baseline)
+    key = hashlib.sha256(json.dumps(comp, sort_keys=True).encode()).hexdigest()[:8]
+    return {"band_hz": settings.get("reporting_band_hz"), "sector_deg": settings.get("sector_deg"),
+            "sector_contents": settings.get("sector_contents"), "settings_key": key,
+            "settings_label": settings_label(comp), "settings": comp}
+
+
+def settings_differences(a: dict, b: dict) -> list[str]:
+    """'name A vs B' for every compared setting that differs between two comparison_settings dicts."""
+    return [f"{label} {_show(a.get(k))} vs {_show(b.get(k))}" for k, label in COMPARED_SETTINGS
+            if a.get(k) != b.get(k)]
+
+
+def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = None,
+            allow_different: bool = False) -> list[dict]:
     """B - A of the band-averaged reduction per polarization, with the uncertainty of the difference.
 
     Each revision's newest measurement is used. The two results are taken as independent,
@@ -579,6 +683,16 @@ def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = Non
     pols = sorted(set(a) & set(b), key=_pol_key)
     if not pols:
         raise InputError(f"revisions {rev_a!r} and {rev_b!r} share no polarization")
+    differences = []
+    for pol in pols:
+        for d in settings_differences(a[pol]["settings"], b[pol]["settings"]):
+            if d not in differences:
+                differences.append(d)
+    if differences and not allow_different:
+        raise InputError(f"revisions {rev_a!r} (run {a[pols[0]]['run_id']}) and {rev_b!r} (run "
+                         f"{b[pols[0]]['run_id']}) were processed differently: {'; '.join(differences)}; "
+                         f"reprocess one like the other, choose comparable runs with `cloakrcs revision current`, "
+                         f"or pass --allow-different")
     out = []
     for pol in pols:
         ra, rb = a[pol], b[pol]
@@ -599,6 +713,8 @@ def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = Non
             "worst_angle_reduction_b_db": rb["worst_angle_reduction_db"],
             "worst_angle_difference_db": diff("worst_angle_reduction_db"),
             "run_a": ra["run_id"], "run_b": rb["run_id"], "campaign_a": ra["campaign"], "campaign_b": rb["campaign"],
+            "band_a_hz": ra["band_hz"], "band_b_hz": rb["band_hz"], "sector_a_deg": ra["sector_deg"],
+            "sector_b_deg": rb["sector_deg"], "settings_differ": differences,
         })
     return out
 
@@ -606,11 +722,30 @@ def compare(url: str | None, rev_a: str, rev_b: str, prototype: str | None = Non
 # ---------------------------------------------------------------- revision notes and parameters
 
 def _revision_for_edit(s: Session, prototype: str, revision: str) -> S.Revision:
+    """An existing revision of an existing prototype; InputError naming the known revisions otherwise."""
     _check_prototype(s, prototype)
     if not revision.strip():
         raise InputError("revision label must not be empty")
     proto = _get_prototype(s, prototype, create=False)
-    return _get_revision(s, proto, revision, None)  # a planned revision may be annotated before it is measured
+    rev = _get_revision(s, proto, revision, None, create=False)
+    if rev is None:
+        labels = sorted(s.scalars(select(S.Revision.label).where(S.Revision.prototype_id == proto.id)).all(),
+                        key=natural_key)
+        raise InputError(f"no revision {revision!r} of prototype {prototype!r} (known: "
+                         f"{', '.join(labels) or 'none'}): revisions come from measured subjects")
+    return rev
+
+
+def set_current_run(url: str | None, prototype: str, revision: str, run_id: int | None) -> None:
+    """Choose the run that is a revision's "current" one (history, compare, the trend); None: the newest."""
+    with open_store(url, write=True).begin() as s:
+        rev = _revision_for_edit(s, prototype, revision)
+        if run_id is not None:
+            runs = sorted(set(s.scalars(select(S.MetricRow.run_id).where(S.MetricRow.revision_id == rev.id))))
+            if int(run_id) not in runs:
+                raise InputError(f"run {run_id} holds no metrics of revision {revision!r} (runs that do: "
+                                 f"{', '.join(map(str, runs)) or 'none'})")
+        rev.current_run_id = None if run_id is None else int(run_id)
 
 
 def set_revision_note(url: str | None, prototype: str, revision: str, text: str) -> None:
@@ -651,7 +786,7 @@ def revision_info(url: str | None, prototype: str | None = None) -> list[dict]:
         for rev, p in s.execute(q).all():
             camps = s.scalars(select(S.Campaign.name).join(S.CampaignTarget, S.CampaignTarget.campaign_id == S.Campaign.id)
                               .where(S.CampaignTarget.revision_id == rev.id).distinct()).all()
-            out.append({"prototype": p.name, "revision": rev.label,
+            out.append({"prototype": p.name, "revision": rev.label, "current_run": rev.current_run_id,
                         "date": rev.date.isoformat() if rev.date else None, "notes": rev.notes,
                         "parameters": {r.key: r.value for r in sorted(rev.parameters, key=lambda r: r.key)},
                         "campaigns": sorted(camps), "_key": (p.name, rev.date or dt.date.max, natural_key(rev.label))})

@@ -40,6 +40,7 @@ class Revision(Base):
     label: Mapped[str] = mapped_column(String(200), nullable=False)
     date: Mapped[dt.date | None] = mapped_column(Date)
     notes: Mapped[str] = mapped_column(Text, nullable=False, default="")
+    current_run_id: Mapped[int | None] = mapped_column(Integer)  # chosen "current" run; None: the newest
     prototype: Mapped[Prototype] = relationship(back_populates="revisions")
     parameters: Mapped[list["RevisionParameter"]] = relationship(back_populates="revision",
                                                                  cascade="all, delete-orphan")
@@ -69,6 +70,7 @@ class Campaign(Base):
     chamber: Mapped[dict] = mapped_column(JSON, nullable=False)
     frequency_hz: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    linked_campaign_id: Mapped[int | None] = mapped_column(Integer)  # an earlier campaign with the same raw files
 
 
 class CampaignTarget(Base):

@@ -255,6 +255,11 @@ def _checked_table(data, data_lineno, width, pairs, v1_two_port, path):
                     _number(parts[k - 1][0], "frequency", path, data_lineno[k - 1]):
                 parts, counts = parts[:k], counts[:k]
                 break
+    if width > 3 and counts.size > 1 and np.all(counts == 3):
+        raise InputError(f"every data row holds 3 values, as a one-port file does (the frequency and one complex "
+                         f"pair), but the file declares more ports ({width} numbers per frequency): a one-port sweep "
+                         f"must be named .s1p",
+                         path=path, line=data_lineno[0])
     ends = np.cumsum(counts)
     offsets = (ends - counts) % width
     bad = np.flatnonzero(offsets + counts > width)

@@ -8,6 +8,7 @@ campaign rebuilt from the store, in a background job.
 from __future__ import annotations
 
 import functools
+import re
 import threading
 from collections import OrderedDict
 from dataclasses import replace
@@ -18,7 +19,7 @@ from dash.exceptions import PreventUpdate
 
 from .. import figures as F
 from ..errors import InputError
-from ..process import ProcessSettings, process_campaign
+from ..process import ProcessSettings, check_failure_text, process_campaign
 
 from . import plots
 from .jobs import JobManager
@@ -98,6 +99,21 @@ def memo(method):
     return wrapper
 
 
+def check_alarm(lines: list[str]):
+    """A prominent box (failed check targets, differently gated reductions); None when there is nothing."""
+    if not lines:
+        return None
+    return html.Div(className="alarm", role="alert", children=html.Ul([html.Li(x) for x in lines]))
+
+
+def upload_relative(text: str, upload_root) -> str:
+    """Strip '<upload root>/<upload folder>/' from paths in a message: the name inside the upload remains."""
+    if not upload_root:
+        return text
+    root = re.escape(str(upload_root).rstrip("/\\"))
+    return re.sub(root + r"[/\\][0-9a-f]{16}[/\\]", "", text)
+
+
 class Views:
     """The dashboard's logic over one source of results."""
 
@@ -151,14 +167,13 @@ class Views:
                           " ".join(_pols(t)), cover, f"{t.gate['center_m']:.3f} ± {t.gate['span_m'] / 2:.3f} m"])
         checks = [[c["target"], c["polarization"], f"{c['max_error_db']:.2f}", f"{c['rms_error_db']:.2f}",
                    f"±{c['tolerance_db']:g}", "pass" if c["passed"] else "FAIL"] for c in r.checks]
-        problems = [f"check target {c['target']} {c['polarization']} exceeds its tolerance: max error "
-                    f"{c['max_error_db']:.2f} dB" for c in r.checks if not c["passed"]]
-        problems += [f"{m['subject']} {m['polarization']}: {m['floor_limited_points']} of {m['points']} points "
+        failed = [check_failure_text(c) for c in r.checks if not c["passed"]]
+        problems = [f"{m['subject']} {m['polarization']}: {m['floor_limited_points']} of {m['points']} points "
                      f"floor-limited, band reduction is a {m['bound']} bound" for m in r.metrics
                      if m["bound"] != "none"]
         if not r.checks:
             problems.append("no check target: the calibration rests on one reference alone")
-        notes = list(r.warnings) + problems
+        notes = [self.shown(w) for w in r.warnings if w not in failed] + problems
         summary = html.Div([
             html.Div([html.H3("Campaign"), _table(facts, ["", ""], "tbl facts")], className="col"),
             html.Div([html.H3("Targets"), _table(trows, ["target", "role", "revision", "baseline", "pol.",
@@ -170,7 +185,11 @@ class Views:
         warn = html.Div(className="warnings" if notes else "ok", children=[
             html.H3("Warnings and problems found" if notes else "No warnings"),
             html.Ul([html.Li(n) for n in notes]) if notes else None])
-        return summary, warn
+        return summary, html.Div([check_alarm(failed), warn])
+
+    def shown(self, text: str) -> str:
+        """A message as the user knows its files: paths inside an upload folder become paths inside the upload."""
+        return upload_relative(text, self.source.upload_root)
 
     @memo
     def campaign_check(self, run_id, pol):
@@ -359,9 +378,18 @@ class Views:
         sector = r.settings.get("sector_deg")
         bound = {"none": "measured (not floor-limited)", "lower": "lower bound (cloaked target near the floor)",
                  "upper": "upper bound (baseline near the floor)", "undetermined": "undetermined (both near the floor)"}
+        if m["bound"] == "undetermined":
+            band_text = "undetermined: the cloaked target and its baseline are both at the floor"
+        else:
+            band_text = (f"{m['band_reduction_db']:.2f} ± {m['band_reduction_uncertainty_db']:.2f} dB "
+                         "(expanded, k = 2; linear sum over band and sector, then dB)")
+        stats = m.get("sector_reduction_db") or {}
+        band_hz = r.settings.get("reporting_band_hz")
         facts = [
-            ["band-averaged reduction", f"{m['band_reduction_db']:.2f} ± {m['band_reduction_uncertainty_db']:.2f} dB "
-                                        "(expanded, k = 2; linear sum over band and sector, then dB)"],
+            ["band and sector", (f"{_ghz(band_hz[0])}–{_ghz(band_hz[1])} GHz; " if band_hz else "")
+             + ("all angles" if not sector else f"{sector[0]:g}° to {sector[1]:g}°")
+             + (f" ({m['sector_contents']})" if m.get("sector_contents") else "")],
+            ["band-averaged reduction", band_text],
             ["value is", bound.get(m["bound"], m["bound"])],
             ["best reduction", f"{_fmt(m['best_reduction_db'])} dB at {_fmt((m['best_frequency_hz'] or 0) / 1e9, '.3f')} GHz"],
             ["bandwidth above threshold", f"{m['bandwidth_hz'] / 1e6:.0f} MHz"
@@ -369,15 +397,19 @@ class Views:
                                              f"fractional {100 * m['fractional_bandwidth']:.1f} %)" if m["bandwidth_hz"] else "")
                                           + (", reaches a band edge" if m["bandwidth_truncated"] else "")],
             ["worst angle", f"{_fmt(m['worst_angle_deg'], 'g')}° ({_fmt(m['worst_angle_reduction_db'])} dB)"],
-            ["sector", "all angles" if not sector else f"{sector[0]:g}° to {sector[1]:g}°"],
+            ["per-point reduction over band and sector",
+             ", ".join(f"{k} {v:.2f} dB" for k, v in stats.items() if v is not None) or "—"],
             ["floor-limited points", f"{m['floor_limited_points']} of {m['points']}"],
             ["mounting offset (subject − baseline)",
-             f"{_fmt(m['mounting_offset_deg'], '.2f')}°"
-             + ("" if m.get("mounting_offset_reliable", True) else " (not reliable: the patterns share too little)")
-             + (" (aligned)" if m.get("angles_aligned") else "")],
+             f"{m['mounting_offset_deg']:.2f}°" + (" (aligned)" if m.get("angles_aligned") else "")
+             if m.get("mounting_offset_deg") is not None else
+             "none" + (f" ({m['mounting_offset_note']})" if m.get("mounting_offset_note") else "")],
             ["check-target max error", _fmt(m["check_error_db"], ".2f", " dB")],
         ]
-        return curve, fmap, _table(facts, [f"{subject} against {m['baseline']}, {pol}", ""], "tbl facts")
+        alarms = [check_failure_text(c) for c in r.checks if not c["passed"] and c["polarization"] == pol]
+        alarms += [m["gate_mismatch"]] if m.get("gate_mismatch") else []
+        return curve, fmap, html.Div([check_alarm(alarms),
+                                      _table(facts, [f"{subject} against {m['baseline']}, {pol}", ""], "tbl facts")])
 
     # ------------------------------------------------------------------ revisions
     def revisions(self, run_id, metric):
@@ -608,13 +640,14 @@ def register(app, views: Views) -> None:
     @app.callback(Output("upload-bar", "style"), Output("upload-status", "children", allow_duplicate=True),
                   Output("upload-interval", "disabled", allow_duplicate=True),
                   Output("run", "options", allow_duplicate=True), Output("run", "value", allow_duplicate=True),
+                  Output("empty-banner", "style"),
                   Input("upload-interval", "n_intervals"), State("upload-job", "data"), prevent_initial_call=True)
     def _poll_upload(_n, job_id):
         frac, state, text = views.job_status(job_id)
         bar = {"width": f"{100 * frac:.0f}%"}
         if state == "running":
-            return bar, text, False, no_update, no_update
+            return bar, text, False, no_update, no_update, no_update
         if state == "done":
             run_id = views.jobs.get(job_id).value
-            return bar, f"added as run {run_id}", True, views.run_options(), run_id
-        return bar, html.Span(text, className="error"), True, no_update, no_update
+            return bar, f"added as run {run_id}", True, views.run_options(), run_id, {"display": "none"}
+        return bar, html.Span(views.shown(text), className="error"), True, no_update, no_update, no_update

@@ -19,8 +19,17 @@ def _field(label: str, control, width: str = "14rem") -> html.Div:
     return html.Div([html.Label(label, className="field-label"), control], className="field", style={"width": width})
 
 
+EMPTY_TEXT = "Nothing to show yet: choose a processing run above (or add a campaign zip)."
+EMPTY_TEXTS = {"fig-preview": "Reprocess with new gate settings to compare them here with the stored run.",
+               "fig-safety": "Fill in power, gain, distance and frequency for an estimate."}
+
+
 def _graph(id_: str) -> dcc.Graph:
-    return dcc.Graph(id=id_, config={"displaylogo": False, "responsive": True}, className="graph")
+    """A graph that shows a short sentence, not blank axes, until its callback draws it."""
+    from .plots import message_figure
+
+    return dcc.Graph(id=id_, config={"displaylogo": False, "responsive": True}, className="graph",
+                     figure=message_figure(EMPTY_TEXTS.get(id_, EMPTY_TEXT)))
 
 
 def _pol_radio(id_: str) -> dcc.RadioItems:
@@ -169,7 +178,7 @@ def build_layout(runs_options, run_value) -> html.Div:
         header(runs_options, run_value),
         caution_banner(),
         html.Div("No processing run in this store yet: run `cloakrcs process MANIFEST`, or add a campaign zip "
-                 "above.", className="empty") if not runs_options else None,
+                 "above.", id="empty-banner", className="empty", style=None if not runs_options else {"display": "none"}),
         dcc.Tabs(id="tabs", value="campaign", className="tabs",
                  children=[dcc.Tab(label=label, value=key, children=builders[key]()) for key, label in VIEWS]),
         dcc.Store(id="gate-job"), dcc.Store(id="upload-job"),

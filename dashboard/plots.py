@@ -110,8 +110,8 @@ def fig_floor(result, pol: str) -> go.Figure:
         x, y = F.decimate(f, db10(med))
         fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{name}", line={"color": c, "width": 1.6}))
         x, y = F.decimate(f, db10(t.floor.sel(polarization=pol).values[valid]))
-        fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{name} floor", showlegend=i == 0,
-                                 legendgroup="floor", line={"color": c, "dash": "dot", "width": 1}))
+        fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{name} floor",
+                                 line={"color": c, "dash": "dot", "width": 1}))
     if not fig.data:
         return message_figure(f"No subject measured in {pol}.")
     fig.update_xaxes(title_text="frequency (GHz)")
@@ -137,30 +137,76 @@ def fig_coverage(result) -> go.Figure:
     return _layout(fig, "Angles measured per target and polarization", height=140 + 22 * len(xs))
 
 
+BOUND_SYMBOLS = {"none": "circle", "lower": "triangle-up", "upper": "triangle-down", "undetermined": "x-thin-open"}
+BOUND_NAMES = {"none": "measured", "lower": "lower bound (at least)", "upper": "upper bound (at most)",
+               "undetermined": "undetermined"}
+GROUP_DASHES = ("solid", "dash", "dot", "dashdot")
+
+
+def trend_groups(rows: list[dict]) -> list[tuple[str, str, list[dict]]]:
+    """Rows grouped by identical processing settings: (key, label, rows), the group of the newest run first."""
+    groups: dict[str, list[dict]] = {}
+    for r in rows:
+        groups.setdefault(r.get("settings_key") or "-", []).append(r)
+    ordered = sorted(groups.items(), key=lambda kv: -max(r["run_id"] for r in kv[1]))
+    return [(k, v[0].get("settings_label") or "settings of the run", v) for k, v in ordered]
+
+
 def fig_trend(rows: list[dict], metric: str, label: str) -> go.Figure:
-    """A metric across revisions (order of first record), newest run of each, one line per polarization."""
+    """A metric across revisions: one line per settings group and polarization, the current run of each revision.
+
+    Runs processed with different band, sector, gates or thresholds are never joined by a line:
+    each settings group has its own dash and is listed under the plot. Band reductions carry
+    their expanded uncertainty as error bars; bounds have their own markers (triangle up: at
+    least, down: at most, cross: undetermined).
+    """
     if not rows:
         return message_figure("No revisions recorded for this prototype yet.")
     order = list(dict.fromkeys(r["revision"] for r in rows))  # rows come in revision order
     fig = go.Figure()
-    for i, pol in enumerate(sorted({r["polarization"] for r in rows})):
-        latest: dict[str, dict] = {}
-        for r in rows:
-            if r["polarization"] == pol and (r["revision"] not in latest
-                                             or r["run_id"] > latest[r["revision"]]["run_id"]):
-                latest[r["revision"]] = r
-        xs = [rev for rev in order if rev in latest]
-        ys = [latest[x].get(metric) for x in xs]
-        if metric == "bandwidth_hz":
-            ys = [None if y is None else y / 1e6 for y in ys]
-        err = None
-        if metric == "band_reduction_db":
-            err = {"type": "data", "array": [latest[x].get("band_reduction_uncertainty_db") or 0 for x in xs]}
-        fig.add_trace(go.Scatter(x=xs, y=ys, error_y=err, mode="lines+markers", name=pol,
-                                 line={"color": PALETTE[(i + 1) % len(PALETTE)], "width": 2}, marker={"size": 9}))
+    groups = trend_groups(rows)
+    notes = []
+    for g, (key, glabel, grows) in enumerate(groups):
+        notes.append(f"{GROUP_DASHES[g % len(GROUP_DASHES)]}: {glabel}")
+        for i, pol in enumerate(sorted({r["polarization"] for r in grows})):
+            latest: dict[str, dict] = {}
+            for r in grows:
+                if r["polarization"] != pol:
+                    continue
+                prev = latest.get(r["revision"])
+                rank = (bool(r.get("current", True)), r["run_id"])
+                if prev is None or rank > (bool(prev.get("current", True)), prev["run_id"]):
+                    latest[r["revision"]] = r
+            xs = [rev for rev in order if rev in latest]
+            ys = [latest[x].get(metric) for x in xs]
+            bounds = [latest[x].get("bound") or "none" for x in xs]
+            if metric == "bandwidth_hz":
+                ys = [None if y is None else y / 1e6 for y in ys]
+            if metric == "band_reduction_db":
+                ys = [None if b == "undetermined" else y for y, b in zip(ys, bounds)]
+            err = None
+            if metric == "band_reduction_db":
+                err = {"type": "data", "visible": True, "thickness": 1.5, "width": 6,
+                       "array": [latest[x].get("band_reduction_uncertainty_db") or 0 for x in xs]}
+            color = PALETTE[(i + 1) % len(PALETTE)]
+            fig.add_trace(go.Scatter(
+                x=xs, y=ys, error_y=err, mode="lines+markers", name=f"{pol}" + (f" · {key}" if len(groups) > 1 else ""),
+                customdata=[[BOUND_NAMES.get(b, b), latest[x]["run_id"]] for x, b in zip(xs, bounds)],
+                hovertemplate="%{x}: %{y:.2f}<br>%{customdata[0]}, run %{customdata[1]}<extra>%{fullData.name}</extra>",
+                line={"color": color, "width": 2, "dash": GROUP_DASHES[g % len(GROUP_DASHES)]},
+                marker={"size": 10, "symbol": [BOUND_SYMBOLS.get(b, "circle") for b in bounds]}))
+    used = {b for r in rows for b in [r.get("bound") or "none"]}
+    for b in ("lower", "upper", "undetermined"):
+        if b in used:  # legend entries for the bound markers
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=BOUND_NAMES[b],
+                                     marker={"size": 10, "symbol": BOUND_SYMBOLS[b], "color": "#5b6775"}))
     fig.update_xaxes(title_text="revision", type="category")
     fig.update_yaxes(title_text=label)
-    return _layout(fig, f"{label} across revisions (newest run of each)")
+    fig.add_annotation(text="<br>".join(["settings plotted (lines never join different settings):"] + notes),
+                       showarrow=False, x=0, y=-0.22, xref="paper", yref="paper", xanchor="left", yanchor="top",
+                       align="left", font={"size": 11})
+    _layout(fig, f"{label} across revisions (current run of each)", height=440 + 16 * len(notes))
+    return fig.update_layout(margin={"b": 110 + 16 * len(notes)})
 
 
 def fig_safety(p_dbm: float, gain_dbi: float, reference_w_m2: float, distance_m: float,
@@ -210,6 +256,7 @@ def fig_rcs_map(result, target: str, pol: str) -> go.Figure:
                                colorscale="Viridis", zmin=float(np.percentile(z, 1)), zmax=float(z.max()),
                                colorbar={"title": {"text": "dBsm", "side": "right"}, "thickness": 14},
                                hovertemplate="%{x:.3f} GHz, %{y:.1f}°<br>%{z:.2f} dBsm<extra></extra>"))
-    fig.update_xaxes(title_text="frequency (GHz)", showgrid=False)
-    fig.update_yaxes(title_text="angle (deg)", showgrid=False)
-    return _layout(fig, f"RCS map of {target}, {pol}", height=460)
+    fig.update_xaxes(title_text="frequency (GHz)", showgrid=False, automargin=True)
+    fig.update_yaxes(title_text="angle (deg)", showgrid=False, automargin=True)
+    _layout(fig, f"RCS map of {target}, {pol}", height=460)
+    return fig.update_layout(margin={"b": 64})

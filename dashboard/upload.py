@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import base64
 import io
+import os
 import shutil
 import stat
 import uuid
@@ -128,10 +129,13 @@ def unpack_campaign(data: bytes, upload_root: Path, filename: str = "upload.zip"
     dest = Path(upload_root) / uuid.uuid4().hex[:16]
     safe_extract(data, dest, label)
     try:
-        return load_campaign(find_manifest(dest, label), root=dest)
+        campaign = load_campaign(find_manifest(dest, label), root=dest)
     except InputError as exc:
         shutil.rmtree(dest, ignore_errors=True)
         if exc.path and exc.path.startswith(str(dest)):
             # name the file as it is inside the zip, keeping the one-line form
             raise InputError(exc.message, label + ":" + exc.path[len(str(dest)) + 1:], exc.line) from None
         raise
+    # warnings name files as they are inside the zip too, not by the upload folder
+    campaign.warnings[:] = [w.replace(str(dest) + os.sep, label + ":") for w in campaign.warnings]
+    return campaign

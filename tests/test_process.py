@@ -177,7 +177,7 @@ def test_strict_exits_3_on_failed_check(tmp_path, capsys):
     code = main(["process", str(sim.manifest_path), "--out", str(out), "--no-store", "--quiet",
                  "--check-tolerance-db", "0.0001", "--strict"])
     assert code == 3
-    assert "check FAILED" in capsys.readouterr().err
+    assert "CHECK TARGET FAILED" in capsys.readouterr().err  # prominent, README: Outputs
     summary = json.loads((out / "summary.json").read_text())
     assert not summary["checks"][0]["passed"]
 

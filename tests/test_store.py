@@ -291,7 +291,8 @@ def test_revision_notes_and_parameters(store_url, tiny, capsys):
     assert main(["revision", "set", "sleeve", "R1", "thickness_mm=1.2", "eps_r=12-0.3j", "--store", store_url]) == 0
     assert main(["revision", "set", "sleeve", "R1", "thickness_mm=1.5", "--store", store_url]) == 0
     info = store.revision_info(store_url, "sleeve")
-    assert info == [{"prototype": "sleeve", "revision": "R1", "date": "2026-11-20", "notes": "first coated sleeve",
+    assert info == [{"prototype": "sleeve", "revision": "R1", "current_run": None, "date": "2026-11-20",
+                     "notes": "first coated sleeve",
                      "parameters": {"eps_r": "12-0.3j", "thickness_mm": "1.5"}, "campaigns": ["tiny"]}]
     assert main(["revision", "show", "--store", store_url]) == 0
     assert "first coated sleeve" in capsys.readouterr().out

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from .history import format_table
+from .history import band_text, format_table, sector_text
 
 
 def register(sub) -> None:
@@ -14,6 +14,8 @@ def register(sub) -> None:
     p.add_argument("--prototype", help="prototype the revisions belong to (needed when the label is ambiguous)")
     p.add_argument("--store", metavar="URL", help="results store (default: CLOAKRCS_STORE or the per-user SQLite file)")
     p.add_argument("--json", action="store_true", help="print the rows as a JSON list")
+    p.add_argument("--allow-different", action="store_true",
+                   help="compare runs whose band, sector or processing settings differ (the output says so)")
     p.set_defaults(func=run)
 
 
@@ -24,7 +26,13 @@ def _f(x, fmt=".2f") -> str:
 def format_compare(rows: list[dict]) -> str:
     r0 = rows[0]
     head = (f"{r0['prototype']}: {r0['revision_b']} - {r0['revision_a']} "
-            f"(uncertainty of the difference sqrt(U_A^2 + U_B^2), runs taken as independent)")
+            f"(uncertainty of the difference sqrt(U_A^2 + U_B^2), runs taken as independent)\n"
+            f"band {band_text(r0.get('band_a_hz'))} GHz, sector {sector_text(r0.get('sector_a_deg'))} deg")
+    if r0.get("settings_differ"):
+        head += (f" for {r0['revision_a']}; band {band_text(r0.get('band_b_hz'))} GHz, sector "
+                 f"{sector_text(r0.get('sector_b_deg'))} deg for {r0['revision_b']}\n"
+                 f"WARNING: compared with --allow-different although the runs were processed differently: "
+                 f"{'; '.join(r0['settings_differ'])}")
     header = ["pol", f"{r0['revision_a']} (dB)", f"{r0['revision_b']} (dB)", "difference (dB)",
               "bandwidth diff (MHz)", "worst angle diff (dB)", "runs"]
     body = []
@@ -41,6 +49,7 @@ def format_compare(rows: list[dict]) -> str:
 def run(args) -> int:
     from .. import store
 
-    rows = store.compare(store.resolve_url(args.store), args.rev_a, args.rev_b, prototype=args.prototype)
+    rows = store.compare(store.resolve_url(args.store), args.rev_a, args.rev_b, prototype=args.prototype,
+                         allow_different=args.allow_different)
     print(json.dumps(rows, indent=2) if args.json else format_compare(rows))
     return 0

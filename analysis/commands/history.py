@@ -31,18 +31,35 @@ def format_table(header: list[str], rows: list[list[str]], right: set[int] = fro
 def format_history(rows: list[dict]) -> str:
     if not rows:
         return "no processed revisions in the store"
-    header = ["prototype", "revision", "date", "pol", "band reduction (dB)", "bandwidth (MHz)",
-              "worst angle (dB @ deg)", "check err (dB)", "campaign", "run"]
+    header = ["prototype", "revision", "date", "pol", "band (GHz)", "sector (deg)", "band reduction (dB)",
+              "bandwidth (MHz)", "worst angle (dB @ deg)", "check err (dB)", "campaign", "run", "settings"]
     body = []
     for r in rows:
-        red = f"{_f(r['band_reduction_db'], '.2f')} +/- {_f(r['band_reduction_uncertainty_db'], '.2f')}"
-        if r.get("bound") not in (None, "none"):
-            red += f" ({r['bound']})"
+        if r.get("bound") == "undetermined":
+            red = "undetermined"
+        else:
+            red = f"{_f(r['band_reduction_db'], '.2f')} +/- {_f(r['band_reduction_uncertainty_db'], '.2f')}"
+            if r.get("bound") not in (None, "none"):
+                red += f" ({r['bound']})"
         worst = f"{_f(r['worst_angle_reduction_db'], '.2f')} @ {_f(r['worst_angle_deg'], 'g')}"
         bw = "-" if r["bandwidth_hz"] is None else f"{r['bandwidth_hz'] / 1e6:.0f}"
-        body.append([r["prototype"], r["revision"], r["date"] or "-", r["polarization"], red, bw, worst,
-                     _f(r["check_error_db"], ".2f"), r["campaign"], r["run_id"]])
-    return format_table(header, body, right={4, 5, 6, 7, 9})
+        body.append([r["prototype"], r["revision"], r["date"] or "-", r["polarization"], band_text(r.get("band_hz")),
+                     sector_text(r.get("sector_deg")), red, bw, worst, _f(r["check_error_db"], ".2f"), r["campaign"],
+                     f"{r['run_id']}{'*' if r.get('current_chosen') and r.get('current') else ''}",
+                     r.get("settings_key") or "-"])
+    groups = {r.get("settings_key"): r.get("settings_label") for r in rows if r.get("settings_key")}
+    legend = "\n".join(f"settings {k}: {v}" for k, v in groups.items())
+    note = "\n(* the run chosen as the revision's current one with `cloakrcs revision current`)" if any(
+        r.get("current_chosen") for r in rows) else ""
+    return format_table(header, body, right={6, 7, 8, 9, 11}) + ("\n" + legend if legend else "") + note
+
+
+def band_text(band_hz) -> str:
+    return "-" if not band_hz else f"{band_hz[0] / 1e9:.4g}-{band_hz[1] / 1e9:.4g}"
+
+
+def sector_text(sector_deg) -> str:
+    return "all" if not sector_deg else f"{sector_deg[0]:g}:{sector_deg[1]:g}"
 
 
 def run(args) -> int:

@@ -25,7 +25,10 @@ def add_processing_options(p) -> None:
     p.add_argument("--drift-correction", action="store_true",
                    help="fit the background's gain and phase to each sweep outside the gate before subtracting")
     p.add_argument("--strict", action="store_true", help="exit with status 3 when a check target fails")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--quiet", action="store_true", help="no progress bar (the results are still printed)")
+    p.add_argument("--percentiles", default="10,90",
+                   help="percentiles of the per-point reduction and RCS over the sector and band, besides the "
+                        "median (comma-separated, default 10,90)")
     p.add_argument("--store", metavar="URL", help="results store (default: CLOAKRCS_STORE or the per-user SQLite file)")
     p.add_argument("--no-store", action="store_true", help="do not record the run in the store")
 
@@ -48,8 +51,17 @@ def settings_from_args(args):
             lo, hi = (float(x) * 1e9 for x in args.band_ghz.split(":"))
         except ValueError:
             raise InputError(f"--band-ghz {args.band_ghz!r}: expected START:STOP in GHz") from None
+        if lo >= hi:
+            raise InputError(f"--band-ghz {args.band_ghz!r}: START must be below STOP (the band is START:STOP in GHz)")
         band = (lo, hi)
+    try:
+        pct = tuple(float(x) for x in str(args.percentiles).split(",") if x.strip())
+    except ValueError:
+        raise InputError(f"--percentiles {args.percentiles!r}: expected numbers such as 10,90") from None
+    if any(not 0 <= q <= 100 for q in pct):
+        raise InputError(f"--percentiles {args.percentiles!r}: each must lie in 0..100")
     return ProcessSettings(
+        percentiles=pct,
         threshold_db=args.threshold_db, floor_margin_db=args.floor_margin_db,
         check_tolerance_db=args.check_tolerance_db,
         sector_deg=parse_sector(args.sector_deg) if args.sector_deg else None,
@@ -64,12 +76,22 @@ def run(args) -> int:
     settings = settings_from_args(args)
     outcome = run_process(args.manifest, args.out, settings, store_url=None if args.no_store else (args.store or ""),
                           report=not args.no_report, quiet=args.quiet or not sys.stderr.isatty())
+    return report_outcome(outcome, args.strict)
+
+
+def report_outcome(outcome, strict: bool) -> int:
+    """Print warnings (stderr), the results (stdout) and failed checks last, where they are seen; exit status."""
+    from ..process import check_failure_text
+
+    failed = outcome.result.failed_checks
+    texts = {check_failure_text(c) for c in failed}
     for w in outcome.result.warnings:
-        print(f"warning: {w}", file=sys.stderr)
-    failed = [c for c in outcome.result.checks if not c["passed"]]
+        if w not in texts:
+            print(f"warning: {w}", file=sys.stderr)
+    print(outcome.describe())
+    sys.stdout.flush()
     for c in failed:
-        print(f"check FAILED: {c['target']} {c['polarization']}: max error {c['max_error_db']:.2f} dB "
-              f"> tolerance {c['tolerance_db']:g} dB", file=sys.stderr)
-    if not args.quiet:
-        print(outcome.describe())
-    return 3 if (failed and args.strict) else 0
+        print(f"*** {check_failure_text(c)} ***", file=sys.stderr)
+    if failed and not strict:
+        print("(exit status 0: use --strict to make a failed check target exit with status 3)", file=sys.stderr)
+    return 3 if (failed and strict) else 0

@@ -21,6 +21,7 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ..batch import expand_manifests, process_many
+    from ..process import check_failure_text
 
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
@@ -34,9 +35,11 @@ def run(args) -> int:
 
     def report(outcome) -> None:
         if outcome.ok:
-            if not args.quiet:
-                stored = f" (run {outcome.run_id})" if outcome.run_id is not None else ""
-                print(f"ok      {outcome.name}: {outcome.out_dir}{stored}")
+            stored = f" (run {outcome.run_id})" if outcome.run_id is not None else ""
+            sector = outcome.result.settings.get("sector_contents")
+            print(f"ok      {outcome.name}: {outcome.out_dir}{stored}" + (f"; sector holds {sector}" if sector else ""))
+            for c in outcome.result.failed_checks:
+                print(f"*** {outcome.name}: {check_failure_text(c)} ***", file=sys.stderr)
         else:
             print(f"FAILED  {outcome.manifest}: {outcome.error}", file=sys.stderr)
 
@@ -44,8 +47,7 @@ def run(args) -> int:
                             store_url=url, report=not args.no_report, on_done=report)
     failed = [o for o in outcomes if not o.ok]
     checks = [c for o in outcomes if o.ok for c in o.result.checks if not c["passed"]]
-    if not args.quiet:
-        print(f"{len(outcomes) - len(failed)} of {len(outcomes)} campaigns processed")
+    print(f"{len(outcomes) - len(failed)} of {len(outcomes)} campaigns processed")
     if failed:
         return 2
     return 3 if (checks and args.strict) else 0

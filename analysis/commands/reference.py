@@ -8,7 +8,7 @@ import sys
 import numpy as np
 
 from ..errors import InputError
-from ..references import SHAPES, reference_amplitude, rcs_dbsm, required_keys
+from ..references import SHAPES, rcs_dbsm, reference_amplitude, required_keys, shape_is_angle_independent_peak
 from ..spans import parse_span
 
 # flag -> manifest key; every flag is optional here, reference_amplitude names what is missing
@@ -23,8 +23,11 @@ def register(sub) -> None:
     for key in _DIMENSIONS:
         p.add_argument("--" + key.replace("_", "-"), dest=key, default=None,
                        help=f"manifest key {key}" + ("" if key in _TEXT else " (number)"))
-    p.add_argument("--freq-ghz", required=True, help="START:STOP:POINTS in GHz (both ends) or one value")
-    p.add_argument("--angle-deg", default="0", help="START:STOP:POINTS in degrees or one value (default 0)")
+    p.add_argument("--freq-ghz", required=True,
+                   help="START:STOP:POINTS (a count) or START:STOP/STEP in GHz, both ends included, or one value")
+    p.add_argument("--angle-deg", default="0",
+                   help="START:STOP:POINTS (a count) or START:STOP/STEP in degrees, both ends included, or one "
+                        "value (default 0). A trihedral's theory is its peak only, the same at every angle")
     p.add_argument("--pol", default="VV", help="HH, VV, HV or VH (default VV)")
     p.set_defaults(func=run)
 
@@ -51,6 +54,9 @@ def run(args) -> int:
     freq_hz = parse_span(args.freq_ghz, "--freq-ghz") * 1e9
     angle = parse_span(args.angle_deg, "--angle-deg")
     pol = str(args.pol).strip().upper()
+    if shape_is_angle_independent_peak(spec) and len(angle) > 1:
+        print(f"warning: the {spec['shape']} model is angle-independent (its peak RCS at every angle); "
+              f"the {len(angle)} angles all get the same value", file=sys.stderr)
     amp = reference_amplitude(spec, freq_hz, angle, pol, base_dir=".")
     db = rcs_dbsm(amp)
     phase = np.degrees(np.angle(amp))
