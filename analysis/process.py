@@ -219,11 +219,7 @@ def settings_problems(campaign: Campaign, settings: ProcessSettings | None = Non
     spans, out = [], []
     for cube in campaign.cubes.values():
         if cube.spec.role != "background":
-            center, span = _gate_of(campaign, cube.spec, settings, None)
-            spans.append(span)
-            if not center > 0:
-                out.append(InputError(f"target {cube.name}: gate centre {center:g} m is not a positive range",
-                                      campaign.manifest.path, cube.spec.line))
+            spans.append(_gate_of(campaign, cube.spec, settings, None)[1])
     if spans and len(campaign.frequency_hz) > 1:
         try:
             valid_and_reporting_band(campaign, settings, min(spans))
