@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import InputError
+from .manifest import MAX_MANIFEST_BYTES, MAX_NAME_CHARS
 
 
 @dataclass
@@ -27,6 +28,7 @@ class CampaignOutcome:
     result: object | None = None     # ProcessingResult
     campaign: object | None = None   # Campaign, only when the parent records the run (SQLite)
     run_id: int | None = None
+    staging: str | None = None       # outputs staged by the worker for the parent to publish with the store
 
     @property
     def ok(self) -> bool:
@@ -50,10 +52,12 @@ def expand_manifests(patterns) -> list[Path]:
 def campaign_name(manifest: Path) -> str:
     """[campaign] name of the manifest, or its folder's name when it cannot be read (the worker reports why)."""
     try:
+        if manifest.stat().st_size > MAX_MANIFEST_BYTES or not manifest.is_file():
+            raise OSError("not a plausible manifest")  # the worker says what is wrong with it
         name = tomllib.loads(manifest.read_text(encoding="utf-8")).get("campaign", {}).get("name")
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, AttributeError):
+    except Exception:  # any manifest, however broken, still gets a folder and its FAILED line
         name = None
-    return str(name) if isinstance(name, str) and name.strip() else manifest.parent.name
+    return str(name)[:MAX_NAME_CHARS] if isinstance(name, str) and name.strip() else manifest.parent.name
 
 
 def plan_outputs(manifests: list[Path], out_root) -> list[tuple[Path, Path]]:
@@ -72,12 +76,21 @@ def is_postgres(url: str | None) -> bool:
     return bool(url) and url.startswith("postgresql")
 
 
+def one_line(exc: BaseException) -> str:
+    """A failure of any kind as one line (an InputError is one already)."""
+    if isinstance(exc, InputError):
+        return str(exc)
+    text = " ".join(str(exc).split())[:300]
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
 def process_one(manifest, out_dir, settings=None, store_url: str | None = None, report: bool = True,
                 return_campaign: bool = False) -> CampaignOutcome:
     """Worker: load (files read serially) and process one campaign into out_dir; never raises.
 
-    ``store_url`` (PostgreSQL) records the run here; ``return_campaign`` ships the campaign back for a
-    parent-side store write.
+    The parent holds out_dir's lock. ``store_url`` (PostgreSQL) records the run here;
+    ``return_campaign`` ships the campaign back, its outputs staged, for the parent to publish with
+    its store write.
     """
     from .campaign import load_campaign
     from .pipeline import run_process
@@ -87,25 +100,26 @@ def process_one(manifest, out_dir, settings=None, store_url: str | None = None, 
     try:
         campaign = load_campaign(manifest, workers=1)
         outcome = run_process(manifest, out_dir, settings, store_url=store_url, report=report, quiet=True,
-                              campaign=campaign)
-    except InputError as err:
-        return CampaignOutcome(manifest, out_dir, name, error=str(err))
-    except Exception as exc:  # one campaign's failure must not stop the others
-        return CampaignOutcome(manifest, out_dir, name, error=f"{type(exc).__name__}: {exc}".splitlines()[0])
+                              campaign=campaign, lock=False, publish=not return_campaign)
+    except Exception as exc:  # one campaign's failure, of any kind, must not stop the others
+        return CampaignOutcome(manifest, out_dir, name, error=one_line(exc))
     return CampaignOutcome(manifest, out_dir, outcome.result.campaign, result=outcome.result,
-                           campaign=campaign if return_campaign else None, run_id=outcome.run_id)
+                           campaign=campaign if return_campaign else None, run_id=outcome.run_id,
+                           staging=None if outcome.staging is None else str(outcome.staging))
 
 
 def _record(outcome: CampaignOutcome, url: str) -> CampaignOutcome:
-    """Parent side: record a worker's campaign and result in the (SQLite) store."""
-    from . import store
+    """Parent side: publish a worker's staged outputs and record its run in the (SQLite) store, as one outcome."""
+    from .outputs import OutputFolder
+    from .pipeline import publish_run
 
+    folder = OutputFolder(outcome.out_dir, lock=False, staging=Path(outcome.staging)).open()
     try:
-        outcome.run_id = store.record_run(url, outcome.campaign, outcome.result)
-    except InputError as err:
-        outcome.error = f"store: {err}"
+        outcome.run_id, _ = publish_run(folder, outcome.result, outcome.campaign, url)
     except Exception as exc:
-        outcome.error = f"store: {type(exc).__name__}: {exc}".splitlines()[0]
+        outcome.error = f"store: {one_line(exc)}"
+    finally:
+        folder.close()
     outcome.campaign = None
     return outcome
 
@@ -132,6 +146,31 @@ def process_many(manifests, out_root, settings=None, workers: int | None = None,
         if on_done:
             on_done(outcome)
 
+    from .outputs import FolderLock
+
+    locks, runnable = [], []
+    for m, o in plan:  # this process holds every output folder's lock until the batch ends
+        try:
+            locks.append(FolderLock(o).acquire())
+            runnable.append((m, o))
+        except Exception as exc:
+            finish(CampaignOutcome(str(m), str(o), campaign_name(m), error=one_line(exc)))
+    try:
+        _run_all(runnable, scheduler, workers, kwargs, finish)
+    finally:
+        for lock in locks:
+            lock.release()
+    return [outcomes[str(m)] for m, _ in plan]
+
+
+def _run_all(plan, scheduler, workers, kwargs, finish) -> None:
+    """Run process_one over the plan (Dask or local processes), calling finish(outcome) as each ends."""
+    if not plan:
+        return
+
+    def failed(m, o, exc) -> CampaignOutcome:  # a worker that died (killed, out of memory) or a lost task
+        return CampaignOutcome(str(m), str(o), campaign_name(Path(m)), error=f"worker failed: {one_line(exc)}")
+
     if scheduler is not None:
         from dask.distributed import Client, as_completed
 
@@ -139,8 +178,12 @@ def process_many(manifests, out_root, settings=None, workers: int | None = None,
         try:
             futures = client.map(process_one, [str(m) for m, _ in plan], [str(o) for _, o in plan],
                                  pure=False, **kwargs)
+            where = {fut.key: item for fut, item in zip(futures, plan)}
             for fut in as_completed(futures):
-                finish(fut.result())
+                try:
+                    finish(fut.result())
+                except Exception as exc:
+                    finish(failed(*where[fut.key], exc))
                 fut.release()
         finally:
             if client is not scheduler:
@@ -150,7 +193,9 @@ def process_many(manifests, out_root, settings=None, workers: int | None = None,
 
         n = min(workers or os.cpu_count() or 1, len(plan)) or 1
         with ProcessPoolExecutor(max_workers=n) as pool:
-            futures = [pool.submit(process_one, str(m), str(o), **kwargs) for m, o in plan]
+            futures = {pool.submit(process_one, str(m), str(o), **kwargs): (m, o) for m, o in plan}
             for fut in as_completed(futures):
-                finish(fut.result())
-    return [outcomes[str(m)] for m, _ in plan]
+                try:
+                    finish(fut.result())
+                except Exception as exc:
+                    finish(failed(*futures[fut], exc))

@@ -14,7 +14,9 @@ from __future__ import annotations
 
 import glob
 import math
+import os
 import re
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -31,6 +33,47 @@ FIELD_REGEX = {
     "repeat": r"(?P<repeat>\d+)",
 }
 BISTATIC_WARN_DEG = 10.0
+MAX_REPEAT = 999_999  # largest {repeat} number
+MAX_ANGLE_DEG = 3600.0  # largest |{angle}| (ten turns)
+# A sweep file's plausible size: at most MAX_SWEEP_POINTS frequencies (the largest sweep of common VNAs,
+# 100 001 points: from memory), each row a frequency and 2 x ports^2 numbers of at most BYTES_PER_NUMBER
+# characters, plus room for comments. A larger file is refused before it is read.
+MAX_SWEEP_POINTS = 100_001
+BYTES_PER_NUMBER = 40
+HEADER_ALLOWANCE_BYTES = 1024 ** 2
+# Work one campaign may ask for: complex samples through the range-profile transforms of one target
+# (FFT length x its sweeps), and the FFT length itself. Uploads to the dashboard get the smaller limit.
+MAX_TRANSFORM_LENGTH = 1 << 22
+MAX_TRANSFORM_SAMPLES = 200_000_000  # 3.2 GB of complex128: a workstation's share
+UPLOAD_TRANSFORM_SAMPLES = 20_000_000  # 320 MB: one request to a shared server
+MAX_SWEEP_MAGNITUDE = 1e6  # |S| above 120 dB is no VNA ratio: a corrupt or mis-scaled file
+
+
+def max_sweep_file_bytes(path: Path) -> tuple[int, int]:
+    """(largest plausible size in bytes, ports assumed) of a Touchstone file, from its .sNp suffix (4 ports otherwise)."""
+    m = re.fullmatch(r"\.s(\d)p", Path(path).suffix.lower())
+    ports = int(m.group(1)) if m and 1 <= int(m.group(1)) <= 4 else 4
+    return MAX_SWEEP_POINTS * (1 + 2 * ports ** 2) * BYTES_PER_NUMBER + HEADER_ALLOWANCE_BYTES, ports
+
+
+def check_sweep_file(path: Path) -> None:
+    """InputError unless ``path`` resolves to a regular file of plausible Touchstone size (checked before reading)."""
+    try:
+        info = os.stat(path)  # follows links: the file a link points to is what would be read
+    except FileNotFoundError:
+        raise InputError("is a link to nothing (a broken symbolic link)", path) from None
+    except OSError as exc:
+        raise InputError(f"cannot read: {exc.strerror or exc}", path) from None
+    if stat.S_ISDIR(info.st_mode):
+        raise InputError("is a directory, not a sweep file", path)
+    if not stat.S_ISREG(info.st_mode):
+        kind = ("a FIFO" if stat.S_ISFIFO(info.st_mode) else "a device" if stat.S_ISCHR(info.st_mode)
+                or stat.S_ISBLK(info.st_mode) else "a socket" if stat.S_ISSOCK(info.st_mode) else "not a file")
+        raise InputError(f"is {kind}, not a regular file: only regular Touchstone files are read", path)
+    limit, ports = max_sweep_file_bytes(path)
+    if info.st_size > limit:
+        raise InputError(f"is {info.st_size} bytes, larger than a {ports}-port Touchstone file of "
+                         f"{MAX_SWEEP_POINTS} frequencies can plausibly be ({limit} bytes): refused unread", path)
 
 
 def wrap_angle_deg(angle_deg):
@@ -164,7 +207,13 @@ def find_sweep_files(manifest: Manifest, spec: TargetSpec, root: Path | None = N
         groups = m.groupdict()
         pol = groups.get("pol", spec.polarization).upper()
         angle = float(groups["angle"]) if "angle" in groups else spec.angle_deg
+        if "repeat" in groups and (len(groups["repeat"]) > 6 or int(groups["repeat"]) > MAX_REPEAT):
+            raise InputError(f"{{repeat}} {groups['repeat'][:20]} is larger than {MAX_REPEAT}", hit)
+        if not abs(angle) <= MAX_ANGLE_DEG:
+            raise InputError(f"{{angle}} {groups['angle'][:20]} deg lies outside [-{MAX_ANGLE_DEG:g}, "
+                             f"{MAX_ANGLE_DEG:g}] deg", hit)
         repeat = int(groups["repeat"]) if "repeat" in groups else 0
+        check_sweep_file(Path(hit))
         found.append(SweepFile(Path(hit), pol, angle, repeat))
     if not found:
         raise InputError(f"target {spec.name}: files pattern '{spec.files}' matches no file", manifest.path, spec.line)
@@ -189,6 +238,15 @@ def _angle_of(found: list[SweepFile], path: Path) -> float:
 
 def _grid_description(freq: np.ndarray) -> str:
     return f"{len(freq)} points {freq[0] / 1e9:.6g}-{freq[-1] / 1e9:.6g} GHz"
+
+
+def grid_difference(freq: np.ndarray, ref: np.ndarray) -> str:
+    """How grid ``freq`` differs from ``ref``: point counts, or the first differing frequency in full (Hz)."""
+    if len(freq) != len(ref):
+        return f"{len(freq)} points against {len(ref)} ({_grid_description(freq)}; {_grid_description(ref)})"
+    k = int(np.flatnonzero(~np.isclose(freq, ref, rtol=1e-9, atol=0))[0])
+    return (f"frequency #{k + 1} is {freq[k]:.12g} Hz against {ref[k]:.12g} Hz "
+            f"({freq[k] - ref[k]:+.6g} Hz; {_grid_description(ref)})")
 
 
 def _plan_target(manifest: Manifest, spec: TargetSpec, root: Path | None):
@@ -257,12 +315,17 @@ def load_target(manifest: Manifest, spec: TargetSpec, workers: int | None = None
         if echo.n_ports != n_ports:
             raise InputError(f"has {echo.n_ports} ports, other files of target {spec.name} have {n_ports}", sf.path)
         if len(echo.frequency_hz) != len(freq) or not np.allclose(echo.frequency_hz, freq, rtol=1e-9, atol=0):
-            raise InputError(f"frequency grid ({_grid_description(echo.frequency_hz)}) differs from "
-                             f"{paths[0].name} ({_grid_description(freq)})", sf.path)
+            raise InputError(f"frequency grid differs from {paths[0].name}'s: "
+                             f"{grid_difference(echo.frequency_hz, freq)}", sf.path)
         if echo.values is None:
             raise InputError(f"target {spec.name}: parameter {params[sf.polarization]} needs more than "
                              f"{n_ports} ports", manifest.path, spec.line)
         flat[k] = echo.values
+        with np.errstate(all="ignore"):
+            peak = np.max(np.abs(echo.values)) if echo.values.size else 0.0
+        if not peak <= MAX_SWEEP_MAGNITUDE:  # also catches inf and NaN
+            raise InputError(f"{params[sf.polarization]} reaches |S| = {peak:.3g}, "
+                             f"above {MAX_SWEEP_MAGNITUDE:g} (120 dB): no VNA ratio is that large", sf.path)
     cube = xr.DataArray(
         data, dims=("polarization", "angle", "repeat", "frequency"),
         coords={"polarization": pols, "angle": np.array(angles, dtype=float),
@@ -287,8 +350,9 @@ def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, wa
     for name in names[1:]:
         other = cubes[name].data.frequency.values
         if len(other) != len(freq) or not np.allclose(other, freq, rtol=1e-9, atol=0):
-            problem(InputError(f"target {name}: frequency grid ({_grid_description(other)}) differs from target "
-                               f"{names[0]}'s ({_grid_description(freq)})", cubes[name].files.flat[0]))
+            problem(InputError(f"target {name}: frequency grid differs from target {names[0]}'s: "
+                               f"{grid_difference(other, freq)}", cubes[name].files.flat[0]))
+    unamb = timedomain.unambiguous_range_m(freq)
     f_top = freq[-1]
     lam_min = C0 / f_top
     references_by_pol: dict[str, list[str]] = {}
@@ -550,6 +614,31 @@ def _check_background(manifest: Manifest, spec: TargetSpec, cube: TargetCube, bg
                            manifest.path, spec.line))
 
 
+def work_problem(manifest: Manifest, cubes: dict[str, TargetCube],
+                 max_samples: int = MAX_TRANSFORM_SAMPLES) -> InputError | None:
+    """The work the campaign asks for, against the limits: FFT length (points x pad_factor) at most
+    MAX_TRANSFORM_LENGTH, and per target FFT length x sweeps (polarizations x angles x repeats) at most
+    ``max_samples`` complex samples. None when within them."""
+    from .timedomain import transform_length
+
+    pad = manifest.gate.pad_factor
+    for name, cube in cubes.items():
+        nf = cube.data.sizes["frequency"]
+        if nf > MAX_SWEEP_POINTS:
+            return InputError(f"target {name}: {nf} frequencies a sweep, more than the limit of {MAX_SWEEP_POINTS}",
+                              manifest.path, cube.spec.line)
+        length = transform_length(nf, pad)
+        if length > MAX_TRANSFORM_LENGTH:
+            return InputError(f"[gate]: pad_factor {pad} x {nf} frequencies asks for an FFT of {length} points, "
+                              f"more than the limit of {MAX_TRANSFORM_LENGTH}", manifest.path)
+        sweeps = cube.data.size // nf
+        if length * sweeps > max_samples:
+            return InputError(f"target {name}: {sweeps} sweeps x an FFT of {length} points (pad_factor {pad}) "
+                              f"= {length * sweeps} samples, more than the limit of {max_samples}: lower "
+                              f"pad_factor or split the campaign", manifest.path, cube.spec.line)
+    return None
+
+
 def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
     """Every problem and warning of a campaign; the campaign itself when it could be loaded.
 
@@ -569,13 +658,21 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
             cubes[spec.name] = load_target(manifest, spec, workers, None if root is None else Path(root))
         except InputError as exc:
             problems.append(exc)
+    work = work_problem(manifest, cubes)
+    if work is not None:
+        problems.append(work)
     check_campaign(manifest, cubes, problems.append, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values if cubes else np.array([])
     campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
+    if cubes:
+        from .process import settings_problems  # the gate and band checks `process` makes before its work
+
+        known = {str(p) for p in problems}
+        problems.extend(p for p in settings_problems(campaign) if str(p) not in known)
     return campaign, problems, warnings
 
 
-def load_campaign(path, workers=None, root=None) -> Campaign:
+def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFORM_SAMPLES) -> Campaign:
     """Load and validate a campaign; raises the first problem as InputError.
 
     Every target's files are read in one batch (one process pool; ``workers=1`` reads
@@ -601,6 +698,9 @@ def load_campaign(path, workers=None, root=None) -> Campaign:
     def fail(err: InputError):
         raise err
 
+    work = work_problem(manifest, cubes, max_samples)
+    if work is not None:
+        raise work
     warnings: list[str] = []
     check_campaign(manifest, cubes, fail, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import re
+import signal
 import sys
 
 from . import __version__
@@ -57,6 +58,20 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run one command; returns its exit status. Ctrl-C at any moment before the command's work is
+    complete exits 130 with one line; once it is complete (called as the program), Ctrl-C is ignored."""
+    as_program = argv is None
+    try:
+        code = _run(argv)
+    except KeyboardInterrupt:
+        print("cloakrcs: interrupted", file=sys.stderr)
+        code = 130
+    if as_program:  # the work is done (or refused): a late Ctrl-C must not turn that into a signal death
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+    return code
+
+
+def _run(argv: list[str] | None) -> int:
     argv = rejoin_negative_values(list(sys.argv[1:] if argv is None else argv))
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -68,11 +83,18 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as exc:
         print(f"cloakrcs: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("cloakrcs: interrupted", file=sys.stderr)
-        return 130
     except BrokenPipeError:
         return 0
+    except Exception as exc:
+        from sqlalchemy.exc import DatabaseError
+
+        if not isinstance(exc, DatabaseError):
+            raise
+        from .store import damaged_store_error
+
+        print(f"cloakrcs: {damaged_store_error(getattr(args, 'store', None) or 'the default store', exc)}",
+              file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":

@@ -75,10 +75,14 @@ def _template():
     return pio.templates["simple_white"]
 
 
+TITLE_CHARS = 120  # a title longer than this is cut (names can be long)
+
+
 def _base_layout(fig: go.Figure, title: str, height: int = 420) -> go.Figure:
     fig.update_layout(
         template=_template(),
-        title={"text": title, "x": 0.0, "xref": "paper", "xanchor": "left", "font": {"size": 15}},
+        title={"text": title if len(title) <= TITLE_CHARS else title[:TITLE_CHARS - 1] + "…", "x": 0.0,
+               "xref": "paper", "xanchor": "left", "font": {"size": 15}},
         font={"family": FONT, "size": 12, "color": "#1d2733"}, height=height,
         margin={"l": 64, "r": 24, "t": 44, "b": 96},
         legend={"orientation": "h", "yanchor": "top", "y": -0.16, "xanchor": "left", "x": 0.0,

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import re
+import stat
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -35,6 +36,22 @@ SHAPE_KEYS = {
 SHAPE_OPTIONAL_DEFAULTS = {"orientation": "upright", "roll_deg": 0.0, "kind": "triangular"}
 
 DEFAULT_SPAN_M = 0.6  # gate span when neither the manifest nor a size gives one
+MAX_MANIFEST_BYTES = 1024 ** 2  # a manifest is a page of keys; anything larger is not one
+MAX_NAME_CHARS = 200  # campaign, prototype, target and revision names, patterns' own names
+MAX_PATTERN_CHARS = 4096  # a files pattern (a path)
+MAX_TEXT_CHARS = 20_000  # free text: notes
+MAX_PAD_FACTOR = 64
+# physical range of every numeric key: key -> (lowest, highest, unit); both ends allowed
+RANGES = {
+    "range_m": (1e-3, 1e5, "m"), "offset_m": (-1e4, 1e4, "m"), "bistatic_deg": (-180.0, 180.0, "deg"),
+    "span_m": (1e-3, 1e5, "m"), "gate_span_m": (1e-3, 1e5, "m"), "center_m": (1e-3, 1e5, "m"),
+    "kaiser_beta": (0.0, 50.0, ""), "pad_factor": (1, MAX_PAD_FACTOR, ""), "edge_fraction": (1e-6, 1.0, ""),
+    "trim_ghz": (0.0, 1e4, "GHz"), "start_ghz": (1e-9, 1e4, "GHz"), "stop_ghz": (1e-9, 1e4, "GHz"),
+    "size_m": (1e-6, 1e3, "m"), "angle_deg": (-360.0, 360.0, "deg"), "specular_deg": (-360.0, 360.0, "deg"),
+    "roll_deg": (-360.0, 360.0, "deg"),
+    **{k: (1e-6, 1e3, "m") for k in ("radius_m", "width_m", "height_m", "length_m", "fold_m", "face_m", "edge_m")},
+}
+TEXT_KEYS = ("notes", "operator_notes")
 SPAN_PER_SIZE = 2.0  # default gate span = 2 x the target's largest dimension
 
 _SECTION_KEYS = {
@@ -132,7 +149,7 @@ class Manifest:
     def background_of(self, spec: TargetSpec) -> TargetSpec | None:
         """The background a target is subtracted with (None when the manifest has none)."""
         if spec.background:
-            return self.target(spec.background)
+            return next((t for t in self.targets if t.name == spec.background), None)
         found = self.by_role("background")
         return found[0] if found else None
 
@@ -180,6 +197,11 @@ def target_extent_m(spec: TargetSpec) -> float | None:
     dimension (:func:`shape_size_m`), or None when neither is known."""
     sizes = [s for s in (spec.size_m, shape_size_m(spec.shape)) if s is not None]
     return max(sizes) if sizes else None
+
+
+def _short(text: str, limit: int = 60) -> str:
+    """A name cut to ``limit`` characters for a message (the full name may be far longer)."""
+    return text if len(text) <= limit else text[:limit - 3] + "..."
 
 
 def _target_lines(text: str) -> list[int]:
@@ -240,10 +262,27 @@ class _Checker:
         if nonnegative and value < 0:
             self.problem(f"{where}: '{key}' must not be negative, got {value:g}", kline)
             return default
+        if key in RANGES:
+            lo, hi, unit = RANGES[key]
+            if not lo <= value <= hi:
+                unit = f" {unit}" if unit else ""
+                self.problem(f"{where}: '{key}' = {value:g}{unit} is outside its range [{lo:g}, {hi:g}]{unit}", kline)
+                return default
         return value
 
+    def free_text(self, table: dict, key: str, where: str, line: int | None, limit: int = MAX_TEXT_CHARS) -> None:
+        """A free-text key: a string of at most ``limit`` characters."""
+        if key not in table:
+            return
+        value = table[key]
+        kline = _key_line(self.text, key, line)
+        if not isinstance(value, str):
+            self.problem(f"{where}: '{key}' must be a string, got {type(value).__name__}", kline)
+        elif len(value) > limit:
+            self.problem(f"{where}: '{key}' is {len(value)} characters long, more than the limit of {limit}", kline)
+
     def string(self, table: dict, key: str, where: str, line: int | None, *, default=None,
-               required=False, choices=None):
+               required=False, choices=None, limit: int = MAX_NAME_CHARS):
         if key not in table:
             if required:
                 self.problem(f"{where}: missing required key '{key}'", line)
@@ -252,6 +291,9 @@ class _Checker:
         kline = _key_line(self.text, key, line)
         if not isinstance(value, str) or not value.strip():
             self.problem(f"{where}: '{key}' must be a non-empty string, got {value!r}", kline)
+            return default
+        if len(value) > limit:
+            self.problem(f"{where}: '{key}' is {len(value)} characters long, more than the limit of {limit}", kline)
             return default
         if choices is not None and value not in choices:
             self.problem(f"{where}: '{key}' = {value!r} is not one of {', '.join(choices)}", kline)
@@ -264,7 +306,16 @@ def read_manifest_text(path: Path) -> str:
     try:
         if path.is_dir():
             raise InputError("is a directory, expected a manifest file", path)
-        raw = path.read_bytes()
+        info = path.stat()
+        if not stat.S_ISREG(info.st_mode):
+            raise InputError("is not a regular file (a device, FIFO or socket), expected a manifest file", path)
+        if info.st_size > MAX_MANIFEST_BYTES:
+            raise InputError(f"manifest is {info.st_size} bytes, more than the limit of {MAX_MANIFEST_BYTES} "
+                             f"(1 MiB)", path)
+        with open(path, "rb") as fh:
+            raw = fh.read(MAX_MANIFEST_BYTES + 1)
+        if len(raw) > MAX_MANIFEST_BYTES:
+            raise InputError(f"manifest is larger than the limit of {MAX_MANIFEST_BYTES} bytes (1 MiB)", path)
     except InputError:
         raise
     except FileNotFoundError:
@@ -280,6 +331,14 @@ def read_manifest_text(path: Path) -> str:
         raise InputError("manifest is not UTF-8 text", path, line) from None
 
 
+def load_toml(text: str) -> dict:
+    """tomllib.loads, with arrays or tables nested too deeply for the parser turned into a TOMLDecodeError."""
+    try:
+        return tomllib.loads(text)
+    except RecursionError:
+        raise tomllib.TOMLDecodeError("arrays or tables nested too deeply") from None
+
+
 def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | None, list[InputError]]:
     """Parse and check a manifest.
 
@@ -291,7 +350,7 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
     text = read_manifest_text(path)
     check = _Checker(path, text, collect)
     try:
-        doc = tomllib.loads(text)
+        doc = load_toml(text)
     except tomllib.TOMLDecodeError as exc:
         msg = str(exc)
         m = re.search(r"at line (\d+)", msg)
@@ -319,6 +378,8 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
         check.problem("missing required section [campaign]", None)
     name = check.string(campaign, "name", "[campaign]", cline, required="campaign" in doc, default="")
     prototype = check.string(campaign, "prototype", "[campaign]", cline, default=None) or name
+    for key in TEXT_KEYS:
+        check.free_text(campaign, key, "[campaign]", cline)
     date = campaign.get("date")
     if date is not None and not isinstance(date, _dt.date):
         check.problem(f"[campaign]: 'date' must be a TOML date such as 2026-11-20, got {date!r}",
@@ -331,6 +392,8 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
     hline = _section_line(text, "chamber")
     if "chamber" not in doc:
         check.problem("missing required section [chamber]", None)
+    check.free_text(chamber_t, "notes", "[chamber]", hline)
+    check.free_text(chamber_t, "name", "[chamber]", hline, limit=MAX_NAME_CHARS)
     chamber = Chamber(
         range_m=check.number(chamber_t, "range_m", "[chamber]", hline, required="chamber" in doc,
                              positive=True, default=1.0),
@@ -342,6 +405,9 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
     gline = _section_line(text, "gate")
     trim_ghz = check.number(gate_t, "trim_ghz", "[gate]", gline, nonnegative=True)
     pad = check.number(gate_t, "pad_factor", "[gate]", gline, default=4, positive=True)
+    if pad != int(pad):
+        check.problem(f"[gate]: 'pad_factor' must be a whole number, got {pad:g}", _key_line(text, "pad_factor", gline))
+        pad = 4
     gate = GateSettings(
         span_m=check.number(gate_t, "span_m", "[gate]", gline, positive=True),
         center_m=check.number(gate_t, "center_m", "[gate]", gline, positive=True),
@@ -386,13 +452,14 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
     seen: dict[str, int | None] = {}
     for i, t in enumerate(raw_targets):
         line = lines[i] if i < len(lines) else None
-        label = f"target {t.get('name', '#' + str(i + 1))!s}"
+        label = f"target {_short(str(t.get('name', '#' + str(i + 1))))}"
         for key in t:
             if key not in _TARGET_KEYS:
                 check.problem(f"{label}: unknown key '{key}'", _key_line(text, key, line))
         name = check.string(t, "name", label, line, required=True)
         role = check.string(t, "role", label, line, required=True, choices=ROLES)
-        files = check.string(t, "files", label, line, required=True)
+        files = check.string(t, "files", label, line, required=True, limit=MAX_PATTERN_CHARS)
+        check.free_text(t, "notes", label, line)
         if name is None or role is None or files is None:
             continue
         if name in seen:
@@ -422,6 +489,10 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
         for key in ("background", "baseline", "revision"):
             if key in t and not isinstance(t[key], str):
                 check.problem(f"{label}: '{key}' must be a string", _key_line(text, key, line))
+            elif key in t and len(t[key]) > MAX_NAME_CHARS:
+                check.problem(f"{label}: '{key}' is {len(t[key])} characters long, more than the limit of "
+                              f"{MAX_NAME_CHARS}", _key_line(text, key, line))
+                t = {k: v for k, v in t.items() if k != key}
         targets.append(TargetSpec(
             name=name, role=role, files=files, line=line, parameter=param,
             background=t.get("background") if isinstance(t.get("background"), str) else None,
@@ -513,5 +584,9 @@ def _check_relations(m: Manifest, check: _Checker) -> None:
                 check.problem(f"target {t.name}: baseline '{t.baseline}' is a {base.role}, not a subject", t.line)
             elif base.name == t.name:
                 check.problem(f"target {t.name}: a subject cannot be its own baseline", t.line)
+        if t.role != "background" and m.gate.center_m is None and m.gate_center_m(t) <= 0:
+            check.problem(f"target {t.name}: gate centre range_m + chamber.offset_m = {t.range_m:g} + "
+                          f"{m.chamber.offset_m:g} = {m.gate_center_m(t):g} m is not a positive range (as "
+                          f"[gate].center_m must be)", t.line)
         if t.calibrates is not None and t.role != "reference":
             check.problem(f"target {t.name}: only a reference has 'calibrates'", t.line)

@@ -1,6 +1,10 @@
 """One processing run end to end: load and validate, process, write outputs, record in the store.
 
-Everything that can fail on bad input fails before the first byte is written.
+Everything that can fail on bad input fails before the first byte is written, and the run is one
+outcome: its outputs are written into a staging folder, then moved into place inside the store's
+transaction, just before it commits; when the move or the commit fails (or Ctrl-C comes before it),
+the store is left as it was and the earlier outputs are put back. The store is opened and checked
+first, so a bad ``--store`` fails before the work.
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ class Outcome:
     run_id: int | None = None
     store_url: str | None = None
     notes: list = None  # lines about the store (raw files already stored under another campaign)
+    staging: Path | None = None  # outputs written but not yet published (publish=False)
 
     def describe(self) -> str:
         lines = [f"processed campaign {self.result.campaign!r} into {self.out_dir}"]
@@ -77,41 +82,76 @@ def _progress(quiet: bool, total: int):
     return bar, tick
 
 
+def publish_run(folder, result: ProcessingResult, campaign: Campaign | None, url: str | None):
+    """Move a staged run's outputs into place and record it in the store (``url`` None: no store) as one
+    outcome; returns (run_id, paths). The summary gets the run id inside the transaction."""
+    from . import outputs
+
+    if url is None:
+        with outputs.interrupts_deferred():
+            return None, folder.publish()
+    from . import store
+
+    paths: dict = {}
+
+    def place(run_id: int) -> None:
+        outputs.write_summary(result, folder.staging, {"run_id": run_id})
+        paths.update(folder.publish())
+
+    run_id = store.record_run(url, campaign, result, before_commit=place, on_rollback=folder.restore)
+    return run_id, paths
+
+
 def run_process(manifest, out_dir, settings: ProcessSettings | None = None, store_url: str | None = "",
-                report: bool = True, quiet: bool = True, campaign: Campaign | None = None) -> Outcome:
+                report: bool = True, quiet: bool = True, campaign: Campaign | None = None,
+                lock: bool = True, publish: bool = True) -> Outcome:
     """Process a campaign and write DIR/rcs.csv, reduction.csv, summary.json and report.html.
 
-    ``store_url``: None skips the store; "" means the default store.
+    ``store_url``: None skips the store; "" means the default store. ``lock``: take the output folder's
+    lock (False when the caller holds it). ``publish=False`` leaves the outputs in ``Outcome.staging``
+    for the caller to publish with :func:`publish_run` (the store is then not written here).
     """
     from . import outputs
 
     settings = settings or ProcessSettings()
+    url = None
+    if store_url is not None:
+        from . import store
+
+        url = store.check_store(store_url or None)  # a bad store fails now, not after the work
     campaign = campaign or load_campaign(manifest)
     bar, tick = _progress(quiet, len(campaign.cubes) + 6)
     try:
         result = process_campaign(campaign, settings, progress=tick)
-        out = outputs.prepare_out_dir(out_dir)
         html = None
         if report:
             from .report import render_report  # imported only when used: plotly is slow to import
 
             html = render_report(result, campaign)
-        run_id, url, notes = None, None, []
-        if store_url is not None:
-            from . import store
+        folder = outputs.OutputFolder(out_dir, lock=lock).open()  # nothing is written before this point
+        keep = False
+        notes: list = []
+        try:
+            outputs.write_outputs(result, folder.staging)
+            if html is not None:
+                outputs.write_text(folder.staging / "report.html", html)
+            tick("outputs")
+            if not publish:
+                keep = True
+                return Outcome(result=result, out_dir=folder.out, paths={}, store_url=url, staging=folder.staging)
+            shared = None
+            if url is not None:
+                from . import store
 
-            url = store.resolve_url(store_url or None)
-            shared = store.files_already_stored(url, campaign)
-            run_id = store.record_run(url, campaign, result)
+                shared = store.files_already_stored(url, campaign)
+            run_id, placed = publish_run(folder, result, campaign, url)
             if shared:
                 notes.append(f"these {shared['files']} files (of {shared['of']}) are already stored under campaign "
                              f"{shared['campaign']!r} (id {shared['campaign_id']}): the new campaign is linked to it")
-        extra = {"run_id": run_id} if run_id is not None else None
-        paths = outputs.write_outputs(result, out, extra)
-        if html is not None:
-            paths["report"] = out / "report.html"
-            outputs.write_text(paths["report"], html)
-        tick("outputs")
+        finally:
+            folder.close(keep_staging=keep)
     finally:
         bar.close()
-    return Outcome(result=result, out_dir=out, paths=paths, run_id=run_id, store_url=url, notes=notes)
+    names = {"rcs.csv": "rcs", "reduction.csv": "reduction", "summary.json": "summary", "report.html": "report"}
+    paths = {names[n]: p for n, p in placed.items()}
+    return Outcome(result=result, out_dir=folder.out, paths=paths, run_id=run_id, store_url=url, notes=notes)

@@ -216,6 +216,51 @@ def _gate_of(campaign: Campaign, spec: TargetSpec, settings: ProcessSettings, of
     return center, span
 
 
+def valid_and_reporting_band(campaign: Campaign, settings: ProcessSettings, min_span_m: float,
+                             warnings: list[str] | None = None):
+    """(valid band mask, reporting band mask) over the campaign's grid; InputError when either is empty.
+
+    Band messages name where the band was given (``--band-ghz`` or the manifest's ``[band]`` line);
+    a band partly outside the valid band is a warning appended to ``warnings``.
+    """
+    m, f = campaign.manifest, campaign.frequency_hz
+    trim = settings.trim_hz if settings.trim_hz is not None else m.gate.trim_hz
+    try:
+        valid = timedomain.valid_band_mask(f, min_span_m, trim)
+    except InputError as exc:
+        raise InputError(exc.message, m.path) from None
+    band = settings.band_hz or m.band_hz
+    band_mask = valid.copy()
+    if band:
+        from_flag = settings.band_hz is not None
+        if band[0] >= band[1]:
+            raise InputError(f"--band-ghz {band[0] / 1e9:g}:{band[1] / 1e9:g}: START must be below STOP")
+        band_mask &= (f >= band[0] - 1e-6) & (f <= band[1] + 1e-6)
+        valid_hz = (float(f[valid][0]), float(f[valid][-1])) if valid.any() else None
+        err, warn_band = band_problem(band, f, valid_hz, "--band-ghz" if from_flag else "[band]")
+        if err or not band_mask.any():
+            raise InputError(err or f"reporting band {band[0] / 1e9:g}-{band[1] / 1e9:g} GHz holds no valid frequency",
+                             None if from_flag else m.path, None if from_flag else m.band_line)
+        if warnings is not None and warn_band and (from_flag or not any(warn_band in w for w in warnings)):
+            warnings.append(warn_band if from_flag else str(InputError(warn_band, m.path, m.band_line)))
+    return valid, band_mask
+
+
+def settings_problems(campaign: Campaign, settings: ProcessSettings | None = None) -> list[InputError]:
+    """What `process` would refuse about the gates and bands, found without processing (for `inspect`)."""
+    settings = settings or ProcessSettings()
+    spans, out = [], []
+    for cube in campaign.cubes.values():
+        if cube.spec.role != "background":
+            spans.append(_gate_of(campaign, cube.spec, settings, None)[1])
+    if spans and len(campaign.frequency_hz) > 1:
+        try:
+            valid_and_reporting_band(campaign, settings, min(spans))
+        except InputError as exc:
+            out.append(exc)
+    return out
+
+
 def estimate_offset_m(campaign: Campaign, settings: ProcessSettings) -> tuple[float, str]:
     """Reference-plane offset from the reference's echo (a sphere's peak is its specular point, R - a)."""
     ref = campaign.manifest.by_role("reference")[0]
@@ -239,6 +284,9 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     f = campaign.frequency_hz
     gate = _gate_kwargs(campaign, settings)
     warnings = list(campaign.warnings)
+    early = settings_problems(campaign, settings)
+    if early:  # gate and band problems are refused before any work
+        raise early[0]
 
     offset_est, offset_ref = (None, None)
     if settings.auto_gate:
@@ -256,6 +304,10 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         if cube.spec.role == "background":
             continue
         center, span = _gate_of(campaign, cube.spec, settings, offset_est)
+        if not center > 0:
+            how = f" (measured offset {offset_est:.3f} m)" if offset_est is not None else ""
+            raise InputError(f"target {name}: gate centre {center:g} m{how} is not a positive range", m.path,
+                             cube.spec.line)
         _flat_top_warning(campaign, cube.spec, center, span, offset_est, warnings)
         d, bg = _subtracted(campaign, cube, settings, gate, center, span)
         if d.shape[2] > 1:
@@ -285,22 +337,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
     # ---- valid band and reporting band
     spans = [g["span"] for g in gated.values()]
-    trim = settings.trim_hz if settings.trim_hz is not None else m.gate.trim_hz
-    valid = timedomain.valid_band_mask(f, min(spans), trim)
-    band = settings.band_hz or m.band_hz
-    band_mask = valid.copy()
-    if band:
-        from_flag = settings.band_hz is not None
-        if band[0] >= band[1]:
-            raise InputError(f"--band-ghz {band[0] / 1e9:g}:{band[1] / 1e9:g}: START must be below STOP")
-        band_mask &= (f >= band[0] - 1e-6) & (f <= band[1] + 1e-6)
-        valid_hz = (float(f[valid][0]), float(f[valid][-1])) if valid.any() else None
-        err, warn_band = band_problem(band, f, valid_hz, "--band-ghz" if from_flag else "[band]")
-        if err or not band_mask.any():
-            raise InputError(err or f"reporting band {band[0] / 1e9:g}-{band[1] / 1e9:g} GHz holds no valid frequency",
-                             None if from_flag else m.path, None if from_flag else m.band_line)
-        if warn_band and (from_flag or not any(warn_band in w for w in warnings)):
-            warnings.append(warn_band if from_flag else str(InputError(warn_band, m.path, m.band_line)))
+    valid, band_mask = valid_and_reporting_band(campaign, settings, min(spans), warnings)
 
     # ---- calibrated targets
     targets: dict[str, TargetResult] = {}

@@ -19,6 +19,7 @@ locked". Readers do not block writers and are not blocked by them.
 
 from __future__ import annotations
 
+import contextlib
 import datetime as dt
 import hashlib
 import io
@@ -38,7 +39,7 @@ import numpy as np
 import xarray as xr
 from sqlalchemy import create_engine, event, func, select
 from sqlalchemy.engine import make_url
-from sqlalchemy.exc import ArgumentError, IntegrityError, OperationalError
+from sqlalchemy.exc import ArgumentError, DatabaseError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session, sessionmaker
 
 from . import store_schema as S
@@ -128,15 +129,99 @@ def _engine_pair(url: str):
     with _lock:
         if key not in _engines:
             backend = make_url(url).get_backend_name()
+            if backend == "sqlite":
+                _check_sqlite_file(url)
             engine = _sqlite_engine(url) if backend == "sqlite" else create_engine(url, pool_pre_ping=True)
             try:
+                _check_schema(engine, url)
                 _migrate(engine)
-            except OperationalError as exc:
+            except InputError:
                 engine.dispose()
-                raise InputError(f"cannot open the results store {_safe(url)}: {exc.orig}") from None
+                raise
+            except DatabaseError as exc:
+                engine.dispose()
+                raise damaged_store_error(url, exc) from None
             writer = engine.execution_options(cloakrcs_write=True)
             _engines[key] = (engine, sessionmaker(bind=engine), sessionmaker(bind=writer))
         return _engines[key]
+
+
+SQLITE_HEADER = b"SQLite format 3\x00"
+
+
+def damaged_store_error(url: str, exc: Exception) -> InputError:
+    """One line for a store the database refuses to read (garbled or truncated file, lost server)."""
+    reason = " ".join(str(getattr(exc, "orig", None) or exc).split())[:200]
+    try:
+        where, postgres = _safe(url), make_url(url).get_backend_name() == "postgresql"
+    except ArgumentError:
+        where, postgres = url, False
+    if isinstance(exc, OperationalError) and postgres:
+        return InputError(f"cannot open the results store {where}: {reason}")
+    return InputError(f"the results store {where} is damaged or is not a database ({reason}): restore it "
+                      f"from a backup, or give --store a new file")
+
+
+def _check_sqlite_file(url: str) -> None:
+    """Refuse, in one line, a store path that holds something other than a SQLite database."""
+    path = make_url(url).database
+    if not path or path == ":memory:":
+        return
+    p = Path(path)
+    if p.is_dir():
+        raise InputError("the results store is a folder, not a SQLite file: give --store a file", p)
+    try:
+        with open(p, "rb") as fh:
+            head = fh.read(len(SQLITE_HEADER))
+    except FileNotFoundError:
+        return  # a new store
+    except OSError as exc:
+        raise InputError(f"cannot read the results store: {exc.strerror or exc}", p) from None
+    if head and head != SQLITE_HEADER:
+        raise InputError("is not a SQLite database (it does not begin with SQLite's header): give --store a "
+                         "cloakrcs results store or a new file", p)
+
+
+def known_revisions() -> set[str]:
+    """Schema revisions this cloakrcs knows: the ids of its migration files."""
+    folder = Path(__file__).with_name("migrations") / "versions"
+    found = set()
+    for f in folder.glob("*.py"):
+        m = re.search(r'^revision\s*=\s*["\']([^"\']+)["\']', f.read_text(encoding="utf-8"), re.M)
+        if m:
+            found.add(m.group(1))
+    return found
+
+
+def _check_schema(engine, url: str) -> None:
+    """Before any work: the store is readable, is a cloakrcs store (or empty) and not from a newer cloakrcs."""
+    from sqlalchemy import inspect as sa_inspect
+    from sqlalchemy import text
+
+    with engine.connect() as conn:
+        tables = set(sa_inspect(conn).get_table_names())
+        revision = None
+        if "alembic_version" in tables:
+            revision = conn.execute(text("SELECT version_num FROM alembic_version")).scalar()
+        for table in ("prototype", "campaign", "processing_run"):  # read a page of each: damage shows here
+            if table in tables:
+                conn.execute(text(f"SELECT count(*) FROM {table}")).scalar()
+        conn.rollback()
+    if revision is None and tables - {"alembic_version"}:
+        shown = ", ".join(sorted(tables)[:5]) + (", ..." if len(tables) > 5 else "")
+        raise InputError(f"the results store {_safe(url)} is not a cloakrcs store: it holds other tables ({shown}); "
+                         f"give --store a cloakrcs results store or a new file")
+    if revision is not None and revision not in known_revisions():
+        raise InputError(f"the results store {_safe(url)} has schema revision {revision!r}, newer than this "
+                         f"cloakrcs knows (up to {SCHEMA_REVISION!r}): it was written by a newer cloakrcs; "
+                         f"upgrade cloakrcs to use it")
+
+
+def check_store(url: str | None = None) -> str:
+    """Open the store and check it now (a bad --store fails before any processing); returns the URL."""
+    url = resolve_url(url)
+    open_store(url)
+    return url
 
 
 def _safe(url: str) -> str:
@@ -444,23 +529,37 @@ def _add_metrics(s: Session, run: S.ProcessingRun, crow: S.Campaign, result) -> 
     s.flush()
 
 
-def record_run(url: str | None, campaign, result) -> int:
+def record_run(url: str | None, campaign, result, before_commit=None, on_rollback=None) -> int:
     """Record a processing run (and its campaign, when new) in one transaction; returns the run id.
 
     On any error nothing is written. A unique-key clash with a concurrent writer (two
     writers adding the same new campaign on PostgreSQL) retries the transaction.
+    ``before_commit(run_id)`` runs inside the transaction, last, with Ctrl-C held back until the
+    commit is over (the run's outputs are moved into place there); when it or the commit fails,
+    the transaction rolls back and ``on_rollback()`` undoes what it did.
     """
+    from .outputs import interrupts_deferred
+
     factory = open_store(url, write=True)
     for attempt in range(3):
+        hooked = False
         try:
-            with factory.begin() as s:
-                crow = _ensure_campaign(s, campaign)
-                run = _add_run(s, crow, campaign, result)
-                _add_results(s, run, result)
-                _add_metrics(s, run, crow, result)
-                return run.id
-        except IntegrityError:
-            if attempt == 2:
+            with contextlib.ExitStack() as commit:
+                with factory.begin() as s:
+                    crow = _ensure_campaign(s, campaign)
+                    run = _add_run(s, crow, campaign, result)
+                    _add_results(s, run, result)
+                    _add_metrics(s, run, crow, result)
+                    run_id = run.id
+                    if before_commit is not None:
+                        commit.enter_context(interrupts_deferred())
+                        hooked = True
+                        before_commit(run_id)
+                return run_id
+        except BaseException as exc:
+            if hooked and on_rollback is not None:
+                on_rollback()
+            if not isinstance(exc, IntegrityError) or attempt == 2:
                 raise
     raise AssertionError("unreachable")
 

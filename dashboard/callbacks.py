@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import functools
 import re
+import shutil
 import threading
 from collections import OrderedDict
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 from dash import Input, Output, State, html, no_update
@@ -22,9 +24,9 @@ from ..errors import InputError
 from ..process import ProcessSettings, check_failure_text, process_campaign
 
 from . import plots
-from .jobs import JobManager
+from .jobs import Cancelled, JobManager
 from .layout import TREND_METRICS
-from .upload import decode_upload, unpack_campaign
+from .upload import decode_upload, unpack_campaign, upload_error, upload_folder
 
 
 def _opt(values, fmt=str):
@@ -39,9 +41,25 @@ def _ghz(x) -> str:
     return f"{x / 1e9:.3f}"
 
 
+UI_NAME_CHARS = 80  # names drawn longer are cut (the full text stays in the cell's tooltip)
+UI_TEXT_CHARS = 400  # a warning or problem line
+
+
+def short(text, limit: int = UI_NAME_CHARS) -> str:
+    """Text cut to ``limit`` characters with an ellipsis, so a long name cannot swamp the page."""
+    text = str(text)
+    return text if len(text) <= limit else text[:limit - 1] + "…"
+
+
+def _cell(c) -> html.Td:
+    if isinstance(c, str) and len(c) > UI_NAME_CHARS:
+        return html.Td(short(c), title=short(c, UI_TEXT_CHARS))
+    return html.Td(c)
+
+
 def _table(rows: list[list], header: list[str], cls: str = "tbl") -> html.Table:
     return html.Table(className=cls, children=[html.Thead(html.Tr([html.Th(h) for h in header])),
-                                               html.Tbody([html.Tr([html.Td(c) for c in r]) for r in rows])])
+                                               html.Tbody([html.Tr([_cell(c) for c in r]) for r in rows])])
 
 
 def _fmt(x, spec=".2f", unit="") -> str:
@@ -129,7 +147,7 @@ class Views:
 
     # ------------------------------------------------------------------ runs
     def run_options(self) -> list[dict]:
-        return [{"label": f"run {r['run_id']}: {r['campaign']} ({r['prototype']}), {r['processed_at']}",
+        return [{"label": f"run {r['run_id']}: {short(r['campaign'])} ({short(r['prototype'])}), {r['processed_at']}",
                  "value": r["run_id"]} for r in self.source.runs()]
 
     def result(self, run_id):
@@ -184,7 +202,7 @@ class Views:
         ], className="row")
         warn = html.Div(className="warnings" if notes else "ok", children=[
             html.H3("Warnings and problems found" if notes else "No warnings"),
-            html.Ul([html.Li(n) for n in notes]) if notes else None])
+            html.Ul([html.Li(short(n, UI_TEXT_CHARS)) for n in notes]) if notes else None])
         return summary, html.Div([check_alarm(failed), warn])
 
     def shown(self, text: str) -> str:
@@ -467,12 +485,20 @@ class Views:
     # ------------------------------------------------------------------ upload
     def start_upload(self, contents, filename) -> str:
         data = decode_upload(contents, filename)
-        campaign = unpack_campaign(data, self.source.upload_root, filename or "upload.zip")
+        label = Path(filename or "upload.zip").name
+        campaign = unpack_campaign(data, self.source.upload_root, label)
+        dest = upload_folder(campaign.manifest.path, self.source.upload_root)
         total = sum(1 for c in campaign.cubes.values() if c.spec.role != "background") + 4
 
         def work(tick):
-            result = process_campaign(campaign, ProcessSettings(), progress=tick)
-            return self.source.record(campaign, result)
+            try:  # a failed or cancelled upload leaves nothing behind; a recorded one keeps its folder
+                result = process_campaign(campaign, ProcessSettings(), progress=tick)
+                return self.source.record(campaign, result)
+            except BaseException as exc:
+                shutil.rmtree(dest, ignore_errors=True)
+                if isinstance(exc, Exception) and not isinstance(exc, Cancelled):
+                    raise upload_error(exc, dest, label) from None
+                raise
 
         return self.jobs.start("upload", total, work, campaign=campaign.manifest.name)
 
@@ -635,6 +661,9 @@ def register(app, views: Views) -> None:
             job = views.start_upload(contents, filename)
         except InputError as exc:
             return no_update, True, html.Span(str(exc), className="error"), {"display": "none"}
+        except Exception as exc:  # never a bare HTTP 500: the user gets one line
+            return (no_update, True, html.Span(f"the upload failed: {type(exc).__name__}", className="error"),
+                    {"display": "none"})
         return job, False, f"processing {filename}…", {"display": "block"}
 
     @app.callback(Output("upload-bar", "style"), Output("upload-status", "children", allow_duplicate=True),

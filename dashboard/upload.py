@@ -119,22 +119,51 @@ def find_manifest(folder: Path, label: str = "upload.zip") -> Path:
     raise InputError(f"the zip holds {len(found)} manifests; upload one campaign at a time", label)
 
 
+def _inside_upload(text: str, dest: Path, label: str) -> str:
+    """``text`` with the server's paths of the upload folder shown as paths inside the zip (``label:...``)."""
+    for root in sorted({str(dest.resolve()), str(dest), str(dest.absolute())}, key=len, reverse=True):
+        text = text.replace(root + "/", label + ":").replace(root, label)
+    for root in sorted({str(dest.parent.resolve()), str(dest.parent.absolute())}, key=len, reverse=True):
+        text = text.replace(root, "[upload folder]")  # the server's folder of uploads, not shown either
+    return text
+
+
+def upload_error(exc: BaseException, dest: Path, label: str) -> InputError:
+    """Any failure while reading an upload as one InputError line naming files inside the upload only."""
+    if isinstance(exc, InputError):
+        path = None if exc.path is None else _inside_upload(exc.path, dest, label)
+        return InputError(_inside_upload(exc.message, dest, label), path, exc.line)
+    text = " ".join(str(exc).split())[:300]
+    return InputError(_inside_upload(f"cannot read the upload ({type(exc).__name__}{': ' + text if text else ''})",
+                                     dest, label), label)
+
+
+def upload_folder(manifest_path, upload_root) -> Path:
+    """The folder an upload was extracted into, from the path of its manifest."""
+    root = Path(upload_root)
+    rel = Path(manifest_path).resolve().relative_to(root.resolve())
+    return root / rel.parts[0]
+
+
 def unpack_campaign(data: bytes, upload_root: Path, filename: str = "upload.zip"):
-    """Extract into a fresh folder under ``upload_root`` and load the campaign (InputError on any problem)."""
-    from ..campaign import load_campaign
+    """Extract into a fresh folder under ``upload_root`` and load the campaign (InputError on any problem).
+
+    On any failure the folder is removed and the message names files inside the upload, never the
+    server's paths. The campaign may ask for at most UPLOAD_TRANSFORM_SAMPLES of work (README, Dashboard).
+    """
+    from ..campaign import UPLOAD_TRANSFORM_SAMPLES, load_campaign
 
     label = Path(filename or "upload.zip").name
     if not label.lower().endswith(".zip"):
         raise InputError("upload a .zip of a manifest and its Touchstone files", label)
     dest = Path(upload_root) / uuid.uuid4().hex[:16]
-    safe_extract(data, dest, label)
     try:
-        campaign = load_campaign(find_manifest(dest, label), root=dest)
-    except InputError as exc:
+        safe_extract(data, dest, label)
+        campaign = load_campaign(find_manifest(dest, label), root=dest, max_samples=UPLOAD_TRANSFORM_SAMPLES)
+    except BaseException as exc:
         shutil.rmtree(dest, ignore_errors=True)
-        if exc.path and exc.path.startswith(str(dest)):
-            # name the file as it is inside the zip, keeping the one-line form
-            raise InputError(exc.message, label + ":" + exc.path[len(str(dest)) + 1:], exc.line) from None
+        if isinstance(exc, Exception):
+            raise upload_error(exc, dest, label) from None
         raise
     # warnings name files as they are inside the zip too, not by the upload folder
     campaign.warnings[:] = [w.replace(str(dest) + os.sep, label + ":") for w in campaign.warnings]

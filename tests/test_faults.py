@@ -1,9 +1,12 @@
-"""Faults: SIGKILL during `cloakrcs process`, a read-only output folder, a full disk.
+"""Faults: SIGKILL during `cloakrcs process`, a read-only output folder, a full disk, and a fault
+injected at every step of writing the outputs and recording the run.
 
 After a kill the SQLite store stays consistent (integrity check, every run complete, no run
 recorded before is lost), a rerun succeeds, and every output file that carries its final name
-is complete; temporaries are ``.<name>.*.part`` (cloakrcs.outputs.atomic_write) or the empty
-``.probe.*`` write probe of prepare_out_dir.
+is complete; temporaries are ``.<name>.*.part`` (cloakrcs.outputs.atomic_write), the empty
+``.probe.*`` write probe of prepare_out_dir, a killed run's ``.cloakrcs-staging-*`` folder (removed
+by the next run) and the folder's ``.cloakrcs.lock``. A fault (full disk, Ctrl-C) at any step
+leaves the store and the earlier outputs exactly as they were (README, Results store and revisions).
 """
 
 from __future__ import annotations
@@ -23,12 +26,14 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
+from cloakrcs.errors import InputError
 from cloakrcs.simulate import simulate_campaign
 
 CLI = [sys.executable, "-m", "cloakrcs.cli"]
 ROOT = Path(__file__).resolve().parents[1]
 OUTPUTS = ("rcs.csv", "reduction.csv", "summary.json", "report.html")
-TEMPORARY = re.compile(r"^(\.(rcs\.csv|reduction\.csv|summary\.json|report\.html)\..+\.part|\.probe\..+)$")
+TEMPORARY = re.compile(r"^(\.(rcs\.csv|reduction\.csv|summary\.json|report\.html)\..+\.part|\.probe\..+"
+                       r"|\.cloakrcs-staging-.+|\.cloakrcs\.lock)$")
 CONFIG = {
     "seed": 3,
     "polarizations": ["HH", "VV"],
@@ -194,3 +199,146 @@ def test_full_disk(campaign, tmp_path, room):
         assert not [q for q in out.iterdir() if q.name.endswith(".part")], "a temporary file was left"
     finally:
         subprocess.run(["umount", str(out)], check=False)
+
+
+# ---------------------------------------------------------------- outputs and store as one outcome
+
+class _Injected(OSError):
+    def __init__(self):
+        super().__init__(28, "No space left on device (injected)")
+
+
+def _products(out: Path) -> dict[str, bytes]:
+    return {n: (out / n).read_bytes() for n in OUTPUTS if (out / n).exists()}
+
+
+@pytest.fixture(scope="module")
+def processed(campaign):
+    """The campaign loaded and processed once, and its report, reused by every injected run."""
+    from cloakrcs.campaign import load_campaign
+    from cloakrcs.process import process_campaign
+    from cloakrcs.report import render_report
+
+    loaded = load_campaign(campaign)
+    result = process_campaign(loaded)
+    return loaded, result, render_report(result, loaded)
+
+
+@pytest.fixture
+def injectable(processed, tmp_path, monkeypatch):
+    """(run, url, out): run() is one `process` run into out with the store at url, processing replayed."""
+    import cloakrcs.pipeline as P
+    import cloakrcs.report as R
+    from cloakrcs.pipeline import run_process
+
+    loaded, result, html = processed
+    monkeypatch.setattr(P, "process_campaign", lambda *_a, **_k: result)
+    monkeypatch.setattr(R, "render_report", lambda *_a, **_k: html)
+    url = f"sqlite:///{tmp_path / 'store.db'}"
+    out = tmp_path / "out"
+
+    def run(store: bool = True):
+        return run_process(loaded.manifest.path, out, store_url=url if store else None, campaign=loaded)
+
+    run()  # an earlier run's outputs and its stored run
+    return run, url, out
+
+
+def _count_replaces(run, monkeypatch) -> int:
+    calls = []
+    real = os.replace
+    monkeypatch.setattr(os, "replace", lambda a, b: (calls.append(1), real(a, b))[1])
+    run()
+    monkeypatch.setattr(os, "replace", real)
+    return len(calls)
+
+
+@pytest.mark.parametrize("fault", [_Injected, KeyboardInterrupt])
+def test_a_fault_at_any_file_step_leaves_outputs_and_store_as_they_were(injectable, monkeypatch, fault):
+    """Every rename of a run (each output's atomic write, the summary with its run id, setting the earlier
+    outputs aside, moving each new one into place) fails once in turn, as a full disk or as Ctrl-C."""
+    run, url, out = injectable
+    steps = _count_replaces(run, monkeypatch)
+    assert steps >= 4 + 1 + 4 + 4  # 4 outputs + summary with run id, 4 set aside, 4 moved into place
+    real = os.replace
+    for k in range(1, steps + 1):
+        before, files = store_state(url), _products(out)
+        calls = []
+
+        def replace(a, b, k=k):
+            calls.append(1)
+            if len(calls) == k:
+                raise fault()
+            return real(a, b)
+
+        monkeypatch.setattr(os, "replace", replace)
+        with pytest.raises((InputError, KeyboardInterrupt)):
+            run()
+        monkeypatch.setattr(os, "replace", real)
+        assert store_state(url) == before, f"step {k}: the store changed"
+        assert _products(out) == files, f"step {k}: the earlier outputs were not kept"
+        assert not list(out.glob(".cloakrcs-staging-*")), f"step {k}: staging left behind"
+    before = store_state(url)
+    outcome = run()
+    assert len(store_state(url)) == len(before) + 1
+    assert json.loads((out / "summary.json").read_text())["run_id"] == outcome.run_id
+
+
+@pytest.mark.parametrize("where", ["records", "commit", "processing"])
+def test_a_store_fault_or_early_ctrl_c_leaves_outputs_and_store_as_they_were(injectable, monkeypatch, where):
+    import sqlalchemy.orm
+
+    import cloakrcs.pipeline as P
+    from cloakrcs import store
+
+    run, url, out = injectable
+    before, files = store_state(url), _products(out)
+    if where == "records":  # fails while the rows are written
+        monkeypatch.setattr(store, "_add_metrics", lambda *_a: (_ for _ in ()).throw(_Injected()))
+    elif where == "commit":  # the outputs are in place when the commit fails: they must go back
+        def commit(self):
+            raise _Injected()
+        monkeypatch.setattr(sqlalchemy.orm.SessionTransaction, "commit", commit)
+    else:
+        monkeypatch.setattr(P, "process_campaign", lambda *_a, **_k: (_ for _ in ()).throw(KeyboardInterrupt()))
+    with pytest.raises((OSError, KeyboardInterrupt)):
+        run()
+    monkeypatch.undo()
+    assert store_state(url) == before and _products(out) == files
+    assert not list(out.glob(".cloakrcs-staging-*"))
+
+
+def test_ctrl_c_during_the_commit_is_held_until_it_is_done(injectable, monkeypatch):
+    from cloakrcs.outputs import OutputFolder
+
+    run, url, out = injectable
+    before = store_state(url)
+    real = OutputFolder.publish
+
+    def publish(self):
+        os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C while the outputs move into place
+        return real(self)
+
+    monkeypatch.setattr(OutputFolder, "publish", publish)
+    outcome = run()
+    assert len(store_state(url)) == len(before) + 1
+    assert json.loads((out / "summary.json").read_text())["run_id"] == outcome.run_id
+
+
+def test_no_store_run_is_published_whole(injectable, monkeypatch):
+    run, url, out = injectable
+    files = _products(out)
+    real = os.replace
+    calls = []
+
+    def replace(a, b):
+        calls.append(1)
+        if len(calls) == 7:  # after the four writes, while the earlier outputs are set aside
+            raise _Injected()
+        return real(a, b)
+
+    monkeypatch.setattr(os, "replace", replace)
+    with pytest.raises(InputError, match="cannot move the outputs into place"):
+        run(store=False)
+    monkeypatch.setattr(os, "replace", real)
+    assert _products(out) == files

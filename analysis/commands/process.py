@@ -42,18 +42,41 @@ def register(sub) -> None:
     p.set_defaults(func=run)
 
 
+# range of every numeric option: (lowest, highest, unit), both ends allowed; NaN and infinities never
+OPTION_RANGES = {
+    "threshold_db": (-100.0, 100.0, "dB"), "floor_margin_db": (0.0, 100.0, "dB"),
+    "check_tolerance_db": (0.0, 100.0, "dB"), "trim_ghz": (0.0, 1e4, "GHz"), "kaiser_beta": (0.0, 50.0, ""),
+    "band_ghz": (1e-9, 1e4, "GHz"), "sector_deg": (-360.0, 360.0, "deg"),
+}
+
+
+def bounded_option(name: str, value):
+    """``value`` (a number, or a tuple of numbers) when finite and within OPTION_RANGES[name]; else InputError."""
+    if value is None:
+        return None
+    lo, hi, unit = OPTION_RANGES[name]
+    for v in (value if isinstance(value, tuple) else (value,)):
+        if not lo <= v <= hi:  # NaN fails every comparison
+            unit_text = f" {unit}" if unit else ""
+            raise InputError(f"--{name.replace('_', '-')} {v:g}: must be a number in [{lo:g}, {hi:g}]{unit_text}")
+    return value
+
+
 def settings_from_args(args):
     from ..process import ProcessSettings
 
     band = None
     if args.band_ghz:
         try:
-            lo, hi = (float(x) * 1e9 for x in args.band_ghz.split(":"))
+            lo, hi = (float(x) for x in args.band_ghz.split(":"))
         except ValueError:
             raise InputError(f"--band-ghz {args.band_ghz!r}: expected START:STOP in GHz") from None
         if lo >= hi:
             raise InputError(f"--band-ghz {args.band_ghz!r}: START must be below STOP (the band is START:STOP in GHz)")
-        band = (lo, hi)
+        bounded_option("band_ghz", (lo, hi))
+        band = (lo * 1e9, hi * 1e9)
+    for name in ("threshold_db", "floor_margin_db", "check_tolerance_db", "trim_ghz", "kaiser_beta"):
+        bounded_option(name, getattr(args, name))
     try:
         pct = tuple(float(x) for x in str(args.percentiles).split(",") if x.strip())
     except ValueError:
@@ -64,7 +87,7 @@ def settings_from_args(args):
         percentiles=pct,
         threshold_db=args.threshold_db, floor_margin_db=args.floor_margin_db,
         check_tolerance_db=args.check_tolerance_db,
-        sector_deg=parse_sector(args.sector_deg) if args.sector_deg else None,
+        sector_deg=bounded_option("sector_deg", parse_sector(args.sector_deg)) if args.sector_deg else None,
         auto_gate=args.auto_gate, align_angles=args.align_angles, drift_correction=args.drift_correction,
         trim_hz=None if args.trim_ghz is None else args.trim_ghz * 1e9, band_hz=band,
         window=args.window, kaiser_beta=args.kaiser_beta)

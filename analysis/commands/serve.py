@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import sys
 
 from ..errors import InputError
@@ -17,9 +18,28 @@ def register(sub) -> None:
     p.set_defaults(func=run)
 
 
+def check_port_free(host: str, port: int) -> None:
+    """InputError (one line) when ``host:port`` cannot be bound, e.g. another program listens there."""
+    import socket
+
+    try:
+        infos = socket.getaddrinfo(host, port, type=socket.SOCK_STREAM)
+    except OSError as exc:
+        raise InputError(f"cannot serve on {host}:{port}: {exc.strerror or exc}") from None
+    family, kind, proto, _, address = infos[0]
+    with socket.socket(family, kind, proto) as sock:
+        sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)  # as the server itself binds
+        try:
+            sock.bind(address)
+        except OSError as exc:
+            hint = ": another program uses it; choose another with --port" if exc.errno == errno.EADDRINUSE else ""
+            raise InputError(f"cannot serve on {host}:{port}: {exc.strerror or exc}{hint}") from None
+
+
 def run(args) -> int:
     if not 0 < args.port < 65536:
         raise InputError(f"port must be 1-65535, got {args.port}")
+    check_port_free(args.host, args.port)
     from ..dashboard.app import create_app
 
     app = create_app(args.store)
