@@ -57,6 +57,7 @@ class TargetCube:
     hashes: dict[str, str]
     n_ports: int
     parameters: dict[str, str]  # polarization -> S-parameter carrying the echo
+    warnings: list[str] = field(default_factory=list)  # what the reader tolerated in its files
 
     @property
     def name(self) -> str:
@@ -210,6 +211,23 @@ def _plan_target(manifest: Manifest, spec: TargetSpec, root: Path | None):
     return pols, angles, repeats, [index[(p, a, r)] for p in pols for a in angles for r in repeats]
 
 
+def reader_warnings(spec: TargetSpec, paths, echoes) -> list[str]:
+    """The reader's warnings for a target's files, one line per distinct warning.
+
+    A warning that many files share is shown once, on its first file, with the count of the others.
+    """
+    seen: dict[str, list] = {}
+    for path, echo in zip(paths, echoes):
+        prefix = str(path)
+        for w in echo.warnings:
+            core = re.sub(r"^:\d+: |^: ", "", w[len(prefix):]) if w.startswith(prefix) else w
+            if core in seen:
+                seen[core][1] += 1
+            else:
+                seen[core] = [w, 0]
+    return [w + (f" (and {n} more file(s) of target {spec.name})" if n else "") for w, n in seen.values()]
+
+
 def _file_parameter(spec: TargetSpec, polarization: str) -> str | None:
     """The S-parameter to read from one file (None: the default for its port count)."""
     if isinstance(spec.parameter, dict):
@@ -261,7 +279,8 @@ def load_target(manifest: Manifest, spec: TargetSpec, workers: int | None = None
     )
     files = np.array([str(p) for p in paths], dtype=object).reshape(len(pols), len(angles), len(repeats))
     hashes = {str(p): e.sha256 for p, e in zip(paths, echoes)}
-    return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params)
+    return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params,
+                      warnings=reader_warnings(spec, paths, echoes))
 
 
 def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, warn) -> None:
@@ -411,6 +430,8 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
             cubes[spec.name] = load_target(manifest, spec, workers, None if root is None else Path(root))
         except InputError as exc:
             problems.append(exc)
+    for cube in cubes.values():
+        warnings.extend(cube.warnings)
     check_campaign(manifest, cubes, problems.append, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values if cubes else np.array([])
     campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
@@ -443,7 +464,7 @@ def load_campaign(path, workers=None, root=None) -> Campaign:
     def fail(err: InputError):
         raise err
 
-    warnings: list[str] = []
+    warnings = [w for cube in cubes.values() for w in cube.warnings]
     check_campaign(manifest, cubes, fail, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values
     return Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
