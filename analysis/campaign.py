@@ -76,7 +76,14 @@ class TargetCube:
         return self.data.sizes["repeat"]
 
     def to_networks(self):
-        """The sweeps as scikit-rf one-port Networks of the echo parameter (a NetworkSet)."""
+        """The raw sweeps as scikit-rf one-port Networks of the echo parameter.
+
+        Returns
+        -------
+        skrf.NetworkSet
+            One Network per polarization, angle and repeat, named ``"<target> <pol> <angle> deg #<repeat>"``;
+            S11 holds the raw VNA ratio of the echo parameter (not calibrated).
+        """
         import skrf
         from skrf.networkSet import NetworkSet
 
@@ -414,7 +421,23 @@ def _check_background(manifest: Manifest, spec: TargetSpec, cube: TargetCube, bg
 def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
     """Every problem and warning of a campaign; the campaign itself when it could be loaded.
 
-    ``root``: keep every data file inside this folder (uploaded campaigns).
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The campaign manifest (TOML).
+    workers : int, optional
+        Reader processes (default: one per core for many files; 1 reads serially).
+    root : str or os.PathLike, optional
+        Keep every data file inside this folder (uploaded campaigns).
+
+    Returns
+    -------
+    campaign : Campaign or None
+        The targets that could be loaded (None when the manifest itself is unusable).
+    problems : list of InputError
+        Every problem found, one line each (``cloakrcs inspect`` prints them).
+    warnings : list of str
+        One line each: far field, bistatic angle, the reader's tolerances, ...
     """
     problems: list[InputError] = []
     warnings: list[str] = []
@@ -439,10 +462,29 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
 
 
 def load_campaign(path, workers=None, root=None) -> Campaign:
-    """Load and validate a campaign; raises the first problem as InputError.
+    """Load and validate a campaign.
 
-    Every target's files are read in one batch (one process pool; ``workers=1`` reads
-    serially). ``root``: keep every data file inside this folder (uploaded campaigns).
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The campaign manifest (TOML); file patterns are relative to its folder.
+    workers : int, optional
+        Every target's files are read in one batch on a process pool (default: one worker
+        per core for many files); ``workers=1`` reads serially.
+    root : str or os.PathLike, optional
+        Keep every data file inside this folder (uploaded campaigns).
+
+    Returns
+    -------
+    Campaign
+        ``cubes`` {target name: TargetCube}, each ``data`` an xarray.DataArray of complex VNA
+        ratios (polarization, angle in degrees as measured, repeat, frequency in Hz);
+        ``frequency_hz``; ``warnings`` (list of one-line str).
+
+    Raises
+    ------
+    InputError
+        The first problem, one line naming the file (and line).
     """
     from . import touchstone
 

@@ -753,9 +753,24 @@ def _map_files(func, arg_lists, workers: int | None):
 
 
 def read_many(paths, n_ports: int | None = None, workers: int | None = None) -> list[Touchstone]:
-    """Read many files, in the order given; a process pool is used for many files on several cores.
+    """Read many Touchstone files, in the order given.
 
-    ``workers=1`` forces a serial read. The first failing file (in order) raises its InputError.
+    Parameters
+    ----------
+    paths : iterable of str or os.PathLike
+    n_ports : int, optional
+        As in :func:`read_touchstone`.
+    workers : int, optional
+        A process pool is used for many files on several cores; ``workers=1`` reads serially.
+
+    Returns
+    -------
+    list of Touchstone
+
+    Raises
+    ------
+    InputError
+        Of the first failing file, in order.
     """
     return _map_files(read_touchstone, [(os.fspath(p), n_ports) for p in paths], workers)
 
@@ -773,7 +788,21 @@ class Echo:
 
 
 def read_echo(path, parameter: str | None = None) -> Echo:
-    """Read a file and keep only ``parameter`` (default S11 for 1-port, S21 for 2-port files)."""
+    """Read a file and keep only the S-parameter that carries a target's echo.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    parameter : str, optional
+        ``"Sij"`` (see :func:`parameter_index`); default S11 for 1-port, S21 for 2-port files,
+        none for more ports (``values`` is then None).
+
+    Returns
+    -------
+    Echo
+        ``frequency_hz`` (Hz), ``values`` (complex, or None when the file has no such
+        parameter), ``n_ports``, ``parameter``, ``sha256`` of the file, reader ``warnings``.
+    """
     ts = read_touchstone(path)
     name = parameter or {1: "S11", 2: "S21"}.get(ts.n_ports)
     values = None
@@ -794,7 +823,17 @@ def read_echoes(paths, parameters, workers: int | None = None) -> list[Echo]:
 
 
 def file_sha256(path) -> str:
-    """Hex SHA-256 digest of the file's raw bytes."""
+    """Hex SHA-256 digest of a file's raw bytes (FIPS 180-4), read in 1 MiB blocks.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+
+    Returns
+    -------
+    str
+        64 lowercase hex digits.
+    """
     path = os.fspath(path)
     digest = hashlib.sha256()
     try:
@@ -815,13 +854,30 @@ def file_sha256(path) -> str:
 
 def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GHz", z0=50.0,
                      comments=(), two_port_order="12_21", matrix_format="Full", digits=12) -> None:
-    """Write S parameters (``s`` (nf, n, n), or (nf,) for one port; frequency in Hz) as Touchstone.
+    """Write S parameters as a Touchstone file, atomically (temporary name, then rename).
 
-    ``version`` "1.0" (the two-port order is then always S11 S21 S12 S22, the matrix Full, and
-    per-port z0 goes on the option line as in the 2.1 specification's version 1.1), "2.0" or
-    "2.1" (``two_port_order`` and ``matrix_format`` apply, per-port z0 goes in ``[Reference]``).
-    Values carry ``digits`` significant digits (frequencies at least 15). The file is written under a temporary name in
-    the same folder, then renamed over ``path``.
+    Parameters
+    ----------
+    path : str or os.PathLike
+        ``.sNp`` for version 1 (N must match), ``.ts`` or ``.sNp`` for version 2.
+    frequency_hz : array_like
+        (nf,) Hz, non-negative, strictly increasing.
+    s : array_like
+        Complex (nf, n, n) with ``s[:, i-1, j-1]`` = Sij, or (nf,) for one port.
+    version : {"1.0", "2.0", "2.1"}
+        Version 1.0: two-port order always S11 S21 S12 S22, matrix Full, per-port z0 on the
+        option line (as the 2.1 specification's version 1.1). Version 2: ``two_port_order``
+        and ``matrix_format`` apply, per-port z0 goes in ``[Reference]``.
+    fmt : {"RI", "MA", "DB"}
+        Pair format (DB: 20 log10 |S| and the angle in degrees).
+    unit : {"Hz", "kHz", "MHz", "GHz"}
+    z0 : float or array_like
+        Reference resistance(s), ohm: one, or one per port.
+    comments : iterable of str
+        Plain ASCII lines written as ``!`` comments.
+    digits : int
+        Significant digits of the values (frequencies keep at least 15). Rows wrap after each
+        matrix row and after every 4 pairs (Touchstone specification).
     """
     path = os.fspath(path)
     version = str(version)
