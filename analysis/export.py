@@ -194,27 +194,15 @@ def write_netcdf(result: ProcessingResult, path) -> Path:
     -------
     pathlib.Path
     """
+    from .outputs import atomic_write
+
     path = Path(path)
-    ds = result_dataset(result)
-    folder = path.parent if str(path.parent) else Path(".")
+    data = result_dataset(result).to_netcdf(engine="scipy", format="NETCDF3_64BIT")  # bytes
     try:
-        folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
-        os.close(fd)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(path, lambda fh: fh.write(data), binary=True)
     except OSError as exc:
-        raise InputError(f"cannot write {path.name}: {exc.strerror or exc}", folder) from None
-    try:
-        ds.to_netcdf(tmp, engine="scipy", format="NETCDF3_64BIT")
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):
-            raise InputError(f"cannot write {path.name}: {exc.strerror or exc}", folder) from None
-        raise
+        raise InputError(f"cannot write {path.name}: {exc.strerror or exc}", path.parent) from None
     return path
 
 
