@@ -100,6 +100,7 @@ class TargetCube:
     hashes: dict[str, str]
     n_ports: int
     parameters: dict[str, str]  # polarization -> S-parameter carrying the echo
+    warnings: list[str] = field(default_factory=list)  # what the reader tolerated in its files
 
     @property
     def name(self) -> str:
@@ -118,7 +119,14 @@ class TargetCube:
         return self.data.sizes["repeat"]
 
     def to_networks(self):
-        """The sweeps as scikit-rf one-port Networks of the echo parameter (a NetworkSet)."""
+        """The raw sweeps as scikit-rf one-port Networks of the echo parameter.
+
+        Returns
+        -------
+        skrf.NetworkSet
+            One Network per polarization, angle and repeat, named ``"<target> <pol> <angle> deg #<repeat>"``;
+            S11 holds the raw VNA ratio of the echo parameter (not calibrated).
+        """
         import skrf
         from skrf.networkSet import NetworkSet
 
@@ -278,6 +286,23 @@ def _plan_target(manifest: Manifest, spec: TargetSpec, root: Path | None):
     return pols, angles, repeats, [index[(p, a, r)] for p in pols for a in angles for r in repeats]
 
 
+def reader_warnings(spec: TargetSpec, paths, echoes) -> list[str]:
+    """The reader's warnings for a target's files, one line per distinct warning.
+
+    A warning that many files share is shown once, on its first file, with the count of the others.
+    """
+    seen: dict[str, list] = {}
+    for path, echo in zip(paths, echoes):
+        prefix = str(path)
+        for w in echo.warnings:
+            core = re.sub(r"^:\d+: |^: ", "", w[len(prefix):]) if w.startswith(prefix) else w
+            if core in seen:
+                seen[core][1] += 1
+            else:
+                seen[core] = [w, 0]
+    return [w + (f" (and {n} more file(s) of target {spec.name})" if n else "") for w, n in seen.values()]
+
+
 def _file_parameter(spec: TargetSpec, polarization: str) -> str | None:
     """The S-parameter to read from one file (None: the default for its port count)."""
     if isinstance(spec.parameter, dict):
@@ -334,7 +359,8 @@ def load_target(manifest: Manifest, spec: TargetSpec, workers: int | None = None
     )
     files = np.array([str(p) for p in paths], dtype=object).reshape(len(pols), len(angles), len(repeats))
     hashes = {str(p): e.sha256 for p, e in zip(paths, echoes)}
-    return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params)
+    return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params,
+                      warnings=reader_warnings(spec, paths, echoes))
 
 
 def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, warn) -> None:
@@ -642,7 +668,23 @@ def work_problem(manifest: Manifest, cubes: dict[str, TargetCube],
 def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, list[InputError], list[str]]:
     """Every problem and warning of a campaign; the campaign itself when it could be loaded.
 
-    ``root``: keep every data file inside this folder (uploaded campaigns).
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The campaign manifest (TOML).
+    workers : int, optional
+        Reader processes (default: one per core for many files; 1 reads serially).
+    root : str or os.PathLike, optional
+        Keep every data file inside this folder (uploaded campaigns).
+
+    Returns
+    -------
+    campaign : Campaign or None
+        The targets that could be loaded (None when the manifest itself is unusable).
+    problems : list of InputError
+        Every problem found, one line each (``cloakrcs inspect`` prints them).
+    warnings : list of str
+        One line each: far field, bistatic angle, the reader's tolerances, ...
     """
     problems: list[InputError] = []
     warnings: list[str] = []
@@ -661,6 +703,8 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
     work = work_problem(manifest, cubes)
     if work is not None:
         problems.append(work)
+    for cube in cubes.values():
+        warnings.extend(cube.warnings)
     check_campaign(manifest, cubes, problems.append, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values if cubes else np.array([])
     campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
@@ -675,8 +719,27 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
 def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFORM_SAMPLES) -> Campaign:
     """Load and validate a campaign; raises the first problem as InputError.
 
-    Every target's files are read in one batch (one process pool; ``workers=1`` reads
-    serially). ``root``: keep every data file inside this folder (uploaded campaigns).
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The campaign manifest (TOML); file patterns are relative to its folder.
+    workers : int, optional
+        Every target's files are read in one batch on a process pool (default: one worker
+        per core for many files); ``workers=1`` reads serially.
+    root : str or os.PathLike, optional
+        Keep every data file inside this folder (uploaded campaigns).
+
+    Returns
+    -------
+    Campaign
+        ``cubes`` {target name: TargetCube}, each ``data`` an xarray.DataArray of complex VNA
+        ratios (polarization, angle in degrees as measured, repeat, frequency in Hz);
+        ``frequency_hz``; ``warnings`` (list of one-line str).
+
+    Raises
+    ------
+    InputError
+        The first problem, one line naming the file (and line).
     """
     from . import touchstone
 
@@ -701,7 +764,7 @@ def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFOR
     work = work_problem(manifest, cubes, max_samples)
     if work is not None:
         raise work
-    warnings: list[str] = []
+    warnings = [w for cube in cubes.values() for w in cube.warnings]
     check_campaign(manifest, cubes, fail, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values
     return Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)

@@ -510,20 +510,31 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
     return targets
 
 
+def _parameter_name(name) -> str | None:
+    """The canonical spelling of an S-parameter name (S21, or S10,11 past port 9); None if it is none."""
+    from .touchstone import parameter_index
+
+    try:
+        i, j = parameter_index(name)
+    except InputError:
+        return None
+    return f"S{i + 1}{j + 1}" if i < 9 and j < 9 else f"S{i + 1},{j + 1}"
+
+
 def _check_parameter(param, label, check: _Checker, line):
-    pattern = re.compile(r"S([1-4])([1-4])$")
     if isinstance(param, str):
-        if not pattern.match(param.upper()):
-            check.problem(f"{label}: parameter {param!r} is not an S-parameter such as S11 or S21", line)
+        name = _parameter_name(param)
+        if name is None:
+            check.problem(f"{label}: parameter {param!r} is not an S-parameter such as S11, S21 or S10,11", line)
             return None
-        return param.upper()
+        return name
     if isinstance(param, dict):
         out = {}
         for pol, p in param.items():
-            if pol.upper() not in POLARIZATIONS or not isinstance(p, str) or not pattern.match(p.upper()):
+            if pol.upper() not in POLARIZATIONS or not isinstance(p, str) or _parameter_name(p) is None:
                 check.problem(f"{label}: parameter table entry {pol} = {p!r} is not POL = \"Sij\"", line)
                 return None
-            out[pol.upper()] = p.upper()
+            out[pol.upper()] = _parameter_name(p)
         return out
     check.problem(f"{label}: parameter must be a string like \"S21\" or a table of polarizations", line)
     return None

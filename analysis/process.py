@@ -30,7 +30,31 @@ CHECK_DYNAMIC_DB = 20.0  # check-target error is scored where theory is within t
 
 @dataclass(frozen=True)
 class ProcessSettings:
-    """User choices for one processing run (the manifest gives the rest)."""
+    """User choices for one processing run (the manifest gives the rest).
+
+    Parameters
+    ----------
+    threshold_db : float
+        Reduction threshold for the bandwidth, dB (default 10).
+    floor_margin_db : float
+        Points less than this above the floor are floor-limited, dB (default 10).
+    check_tolerance_db : float
+        Largest check-target error that passes, dB (default 1).
+    sector_deg : (float, float), optional
+        Angular sector START, STOP in degrees, wrapped to (-180, 180]; default every angle.
+    auto_gate, align_angles, drift_correction : bool
+        As the `process` options of the same names.
+    trim_hz : float, optional
+        Band-edge trim after gating, Hz (default c0 / (2 span)).
+    band_hz : (float, float), optional
+        Reporting band, Hz (default the manifest's ``[band]``, else the valid band).
+    window : str, optional
+        ``kaiser``, ``hann`` or ``rect``, overriding the manifest; ``kaiser_beta`` likewise.
+    gate_overrides : dict
+        {target name or "*": {"center_m": m, "span_m": m}}.
+    coverage_k : float
+        Coverage factor of the expanded uncertainty (default 2).
+    """
 
     threshold_db: float = 10.0
     floor_margin_db: float = 10.0
@@ -277,7 +301,31 @@ def estimate_offset_m(campaign: Campaign, settings: ProcessSettings) -> tuple[fl
 
 
 def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None, progress=None) -> ProcessingResult:
-    """Run the chain on a loaded, validated campaign. ``progress(step_name)`` is called per step."""
+    """Run the processing chain (README, "The processing chain", steps 1 to 7) on a campaign.
+
+    Parameters
+    ----------
+    campaign : Campaign
+        From :func:`cloakrcs.load_campaign` (loaded and validated).
+    settings : ProcessSettings, optional
+        User choices (threshold, sector, band, gate overrides...); default ``ProcessSettings()``.
+    progress : callable, optional
+        ``progress(step_name)`` is called after each step.
+
+    Returns
+    -------
+    ProcessingResult
+        ``targets`` {name: TargetResult} with ``amplitude`` (complex A in m, xarray
+        polarization x angle x frequency; sigma = |A|^2 m^2, time factor exp(+j w t)),
+        ``floor`` (m^2) and ``rep_rel_u``; ``checks``, ``metrics`` (dicts as in summary.json;
+        dB, Hz, degrees), ``reductions``, ``valid_mask``/``band_mask`` over ``frequency_hz``,
+        ``settings`` and ``warnings``.
+
+    Raises
+    ------
+    InputError
+        Settings that do not fit the campaign (a band outside the valid band, an empty sector).
+    """
     settings = settings or ProcessSettings()
     tick = progress or (lambda _name: None)
     m = campaign.manifest

@@ -7,20 +7,27 @@ Conventions
 * ``z0`` holds one real reference resistance per port, in ohm.
 * Version 1.0 two-port rows are ``f S11 S21 S12 S22``; version 2 two-port rows follow
   ``[Two-Port Data Order]`` (``12_21`` or ``21_12``; ``21_12`` when the keyword is absent,
-  as in version 1). Three- and four-port rows are row-major and may be wrapped over several
-  lines; a frequency row always starts on a new line.
+  as in version 1). Files of three or more ports are row-major and may be wrapped over several
+  lines; a frequency row always starts on a new line. 1 to ``MAX_PORTS`` (99) ports are read.
 * Y and Z files are converted to S with scikit-rf's ``y2s`` / ``z2s`` (power-wave definition):
   ``S = Z0^(-1/2) (Z - Z0) (Z + Z0)^-1 Z0^(1/2)`` with ``Z0 = diag(z0)``, which is
   ``(Z - Z0)(Z + Z0)^-1`` when all ports share one reference. In version 1.0 files Y and Z
   values are normalised to the option line's R (Touchstone specification): ``Z = z R`` and
   ``Y = y / R``; version 2 files hold them in ohm and siemens.
 * H and G (hybrid two-port) files are refused with an ``InputError``: convert them to S first.
-* Noise parameters (the version 1 two-port noise block, which starts where the frequency
-  falls, and version 2 ``[Noise Data]``) and ``[Begin Information]`` blocks are skipped.
+* Noise parameters (the version 1 two-port noise block, which starts where a frequency row's
+  frequency is not above the previous row's, and version 2 ``[Noise Data]``) and
+  ``[Begin Information]`` blocks are skipped.
 * Mixed-mode files (``[Mixed-Mode Order]``) are refused.
 
+Real-world tolerances (each but the first gives a warning in ``Touchstone.warnings``): comments
+that are not UTF-8 are decoded as Latin-1 (non-text anywhere else is still refused); an option
+line whose ``R`` has no value takes 50 ohm; version 2 data that follow ``[Number of
+Frequencies]`` without a ``[Network Data]`` keyword are read as network data.
+
 Every problem with a file raises ``cloakrcs.errors.InputError`` naming the file and, where
-there is one, the line.
+there is one, the line. A file larger than a Touchstone file of its port count can be
+(:func:`max_file_bytes`) is refused before it is read, and so is anything but a regular file.
 """
 
 from __future__ import annotations
@@ -30,9 +37,10 @@ import hashlib
 import io
 import os
 import re
+import stat
 import tempfile
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from itertools import chain, repeat
 
 import numpy as np
@@ -47,6 +55,9 @@ __all__ = [
     "write_touchstone",
     "file_sha256",
     "read_many",
+    "max_file_bytes",
+    "MAX_PORTS",
+    "MAX_FREQUENCIES",
 ]
 
 _UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
@@ -55,8 +66,19 @@ _PARAMETERS = ("s", "y", "z", "h", "g")
 _FORMATS = ("ri", "ma", "db")
 _MATRIX_FORMATS = ("full", "lower", "upper")
 _EXTENSION = re.compile(r"\.[syzhg](\d+)p$", re.IGNORECASE)
-_PARAMETER_NAME = re.compile(r"^\s*S\s*(\d)\s*(\d)\s*$", re.IGNORECASE)
-_MAX_PORTS = 4
+# S21 (one digit per port), or S10,11 / S10_11 when a port number has two digits
+_PARAMETER_NAME = re.compile(r"^\s*S\s*(?:(\d)\s*(\d)|(\d{1,2})\s*[,_]\s*(\d{1,2}))\s*$", re.IGNORECASE)
+# The specification sets no largest port count (from memory: checked against no printed limit);
+# 99 keeps every port number to two digits, so that every Sij can be named (S10,11).
+MAX_PORTS = 99
+# Plausible largest sweep: VNAs sweep up to about 10^5 points (from memory); simulators write
+# more. 10^6 frequencies leave room for both; a file is sized for it before it is read.
+MAX_FREQUENCIES = 1_000_000
+_BYTES_PER_VALUE = 32  # "-1.2345678901234567e-05" and its separator, with room for alignment
+_HEADER_BYTES = 16 << 20  # comments, [Begin Information] and noise data
+_PROBE_BYTES = 1 << 20  # where a version 2 file's [Number of Ports] is looked for before reading
+_PORTS_KEYWORD = re.compile(rb"\[\s*number\s+of\s+ports\s*\]\s*(\d+)", re.IGNORECASE)
+_DEFAULT_R_OHM = 50.0
 _NUMERIC_BYTES = b"0123456789+-.eE \n"
 # below this many files a process pool costs more than it saves (common practice)
 _POOL_MIN_FILES = 16
@@ -64,14 +86,33 @@ _POOL_MIN_FILES = 16
 
 @dataclass(frozen=True, eq=False)
 class Touchstone:
-    """One Touchstone file as arrays: frequency in Hz, S matrix per frequency, z0 in ohm per port."""
+    """One Touchstone file as arrays.
 
-    frequency_hz: np.ndarray  # float64 (nf,)
-    s: np.ndarray  # complex128 (nf, n_ports, n_ports); s[:, i-1, j-1] is Sij
-    z0: np.ndarray  # float64 (n_ports,), ohm
-    version: str  # "1.0", "2.0" or "2.1"
-    source_parameter: str  # "S", "Y" or "Z" as in the file (data converted to S)
+    Attributes
+    ----------
+    frequency_hz : numpy.ndarray
+        float64 (nf,), Hz, strictly increasing.
+    s : numpy.ndarray
+        complex128 (nf, n_ports, n_ports); ``s[:, i-1, j-1]`` is Sij (into port i from port j).
+    z0 : numpy.ndarray
+        float64 (n_ports,), reference resistance per port in ohm.
+    version : str
+        "1.0", "2.0" or "2.1".
+    source_parameter : str
+        "S", "Y" or "Z" as in the file (the data are converted to S).
+    comments : tuple of str
+        The file's comments, without their ``!``.
+    warnings : tuple of str
+        One line each, ``path:line: what was tolerated`` (see the module's real-world tolerances).
+    """
+
+    frequency_hz: np.ndarray
+    s: np.ndarray
+    z0: np.ndarray
+    version: str
+    source_parameter: str
     comments: tuple[str, ...]
+    warnings: tuple[str, ...] = ()
 
     @property
     def n_ports(self) -> int:
@@ -79,40 +120,131 @@ class Touchstone:
 
 
 def parameter_index(name: str) -> tuple[int, int]:
-    """Zero-based (row, column) of an S-parameter name: ``"S21"`` -> ``(1, 0)``."""
+    """Zero-based (row, column) of an S-parameter name.
+
+    Parameters
+    ----------
+    name : str
+        ``"Sij"`` with one-digit ports (``"S21"``), or ``"Si,j"`` / ``"Si_j"`` when a port number
+        has two digits (``"S10,11"``). Sij is the wave into port i from port j.
+
+    Returns
+    -------
+    tuple of int
+        ``(i - 1, j - 1)``: ``"S21"`` -> ``(1, 0)``.
+    """
     m = _PARAMETER_NAME.match(str(name))
-    if not m or m.group(1) == "0" or m.group(2) == "0":
-        raise InputError(f"bad S-parameter name {name!r}: expected Sij with ports 1..9, e.g. S21")
-    return int(m.group(1)) - 1, int(m.group(2)) - 1
+    if m:
+        i, j = (int(g) for g in (m.groups()[:2] if m.group(1) else m.groups()[2:]))
+        if 1 <= i <= MAX_PORTS and 1 <= j <= MAX_PORTS:
+            return i - 1, j - 1
+    raise InputError(f"bad S-parameter name {name!r}: expected Sij with ports 1..9, e.g. S21, "
+                     f"or Si,j for ports up to {MAX_PORTS}, e.g. S10,11")
 
 
-# --------------------------------------------------------------------------- reading
+def max_file_bytes(n_ports: int) -> int:
+    """Largest file, in bytes, a Touchstone file of ``n_ports`` ports is read from.
+
+    ``MAX_FREQUENCIES`` rows of 1 + 2 n^2 numbers at 32 bytes a number, plus 16 MiB for
+    comments, information and noise blocks.
+    """
+    return _HEADER_BYTES + MAX_FREQUENCIES * (1 + 2 * n_ports * n_ports) * _BYTES_PER_VALUE
 
 
-def _read_text(path: str) -> str:
-    """The file's text (UTF-8, byte-order mark dropped); binary or unreadable files refused."""
-    if os.path.isdir(path):
-        raise InputError("is a directory, not a Touchstone file", path=path)
+# --------------------------------------------------------------------------- reading: bytes to text
+
+
+def _ports_from_extension(path: str) -> int | None:
+    m = _EXTENSION.search(path)
+    return int(m.group(1)) if m else None
+
+
+def _size_limit(path: str, fh, n_ports: int | None) -> tuple[int, str]:
+    """(byte limit, what it is for): from the extension, the caller, or a version 2 header."""
+    ports = _ports_from_extension(path) or n_ports
+    if ports is None:
+        m = _PORTS_KEYWORD.search(fh.read(_PROBE_BYTES))
+        fh.seek(0)
+        ports = int(m.group(1)) if m else 1
+    ports = min(max(ports, 1), MAX_PORTS)
+    return max_file_bytes(ports), f"{ports}-port"
+
+
+def _read_bytes(path: str, n_ports: int | None) -> bytes:
+    """The raw bytes of a regular file no larger than a Touchstone file of its port count can be."""
     try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
+        info = os.stat(path)
     except FileNotFoundError:
         raise InputError("file does not exist", path=path) from None
     except OSError as exc:
         raise InputError(f"cannot read the file: {exc.strerror or exc}", path=path) from None
+    if stat.S_ISDIR(info.st_mode):
+        raise InputError("is a directory, not a Touchstone file", path=path)
+    if not stat.S_ISREG(info.st_mode):  # a FIFO would block, /dev/zero never ends
+        raise InputError("is not a regular file (a FIFO, device or socket): not a Touchstone file", path=path)
+    try:
+        with open(path, "rb") as fh:
+            limit, what = _size_limit(path, fh, n_ports)
+            too_big = (f"larger than the {limit / 1e6:.0f} MB limit for a {what} Touchstone file (up to "
+                       f"{MAX_FREQUENCIES:,} frequencies at {_BYTES_PER_VALUE} bytes a number): not read")
+            if info.st_size > limit:
+                raise InputError(f"{info.st_size / 1e6:.0f} MB is {too_big}", path=path)
+            chunks, total = [], 0
+            while total <= limit:  # in blocks: the file may grow while it is read
+                block = fh.read(min(1 << 24, limit + 1 - total))
+                if not block:
+                    break
+                chunks.append(block)
+                total += len(block)
+    except OSError as exc:
+        raise InputError(f"cannot read the file: {exc.strerror or exc}", path=path) from None
+    if total > limit:
+        raise InputError(f"the file is {too_big}", path=path)
+    return b"".join(chunks)
+
+
+def _decode_lenient(raw: bytes, path: str) -> str:
+    """Text of a file that is not UTF-8 throughout: comments UTF-8 else Latin-1, the rest strict."""
+    out = []
+    for k, line in enumerate(raw.split(b"\n")):
+        try:
+            out.append(line.decode("utf-8"))
+            continue
+        except UnicodeDecodeError:
+            pass
+        head, bang, comment = line.partition(b"!")
+        try:
+            head_text = head.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise InputError(f"binary or non-UTF-8 content (byte 0x{head[exc.start]:02x}) outside a comment: "
+                             "not a Touchstone text file", path=path, line=k + 1) from None
+        try:
+            comment_text = comment.decode("utf-8")
+        except UnicodeDecodeError:
+            comment_text = comment.decode("latin-1")  # free text, as some instruments write it
+        out.append(head_text + bang.decode() + comment_text)
+    return "\n".join(out)
+
+
+def _read_text(path: str, n_ports: int | None = None) -> str:
+    """The file's text, LF line endings, byte-order mark dropped; binary or oversized files refused."""
+    raw = _read_bytes(path, n_ports)
     nul = raw.find(b"\x00")
     if nul >= 0:
         raise InputError("binary content (NUL byte): not a Touchstone text file",
                          path=path, line=raw.count(b"\n", 0, nul) + 1)
+    if raw.startswith(b"\xef\xbb\xbf"):
+        raw = raw[3:]
     try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise InputError(f"binary or non-UTF-8 content (byte 0x{raw[exc.start]:02x}): "
-                         "not a Touchstone text file",
-                         path=path, line=raw.count(b"\n", 0, exc.start) + 1) from None
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        text = _decode_lenient(raw, path)
     if "\r" in text:  # CRLF, old Mac CR-only and mixed line endings all become LF
         text = text.replace("\r\n", "\n").replace("\r", "\n")
     return text
+
+
+# --------------------------------------------------------------------------- reading: header
 
 
 def _number(token: str, what: str, path: str, line: int) -> float:
@@ -133,8 +265,11 @@ def _is_number(token: str) -> bool:
     return True
 
 
-def _parse_option_line(text: str, path: str, line: int) -> dict:
-    """``# <unit> <parameter> <format> R <n> [<n> ...]`` in any order, case-insensitive."""
+def _parse_option_line(text: str, path: str, line: int | None, warn=None) -> dict:
+    """``# <unit> <parameter> <format> R <n> [<n> ...]`` in any order, case-insensitive.
+
+    ``R`` with no value takes 50 ohm and calls ``warn(message, line)``.
+    """
     opts: dict = {}
     toks = text[1:].split()
     k = 0
@@ -154,8 +289,9 @@ def _parse_option_line(text: str, path: str, line: int) -> dict:
                 k += 1
                 values.append(_number(toks[k], "option line R", path, line))
             if not values:
-                raise InputError("option line: R must be followed by the reference resistance in ohm",
-                                 path=path, line=line)
+                if warn is not None:
+                    warn(f"option line: R has no value: taken as the default {_DEFAULT_R_OHM:g} ohm", line)
+                values = [_DEFAULT_R_OHM]
             if min(values) <= 0:
                 raise InputError("option line: the reference resistance R must be positive",
                                  path=path, line=line)
@@ -166,7 +302,7 @@ def _parse_option_line(text: str, path: str, line: int) -> dict:
     opts.setdefault("unit", "ghz")
     opts.setdefault("parameter", "s")
     opts.setdefault("format", "ma")
-    opts.setdefault("r", [50.0])
+    opts.setdefault("r", [_DEFAULT_R_OHM])
     if opts["parameter"] in ("h", "g"):
         raise InputError(f"{opts['parameter'].upper()} (hybrid) parameters are not supported: "
                          "convert the file to S, Y or Z", path=path, line=line)
@@ -217,9 +353,209 @@ def _on_decimal_grid(v: np.ndarray, e: int) -> np.ndarray:
     return v * 10.0 ** e
 
 
-def _ports_from_extension(path: str) -> int | None:
-    m = _EXTENSION.search(path)
-    return int(m.group(1)) if m else None
+
+@dataclass
+class _Scan:
+    """What a pass over a file's lines found: header values, data lines, comments, warnings."""
+
+    path: str
+    version: str = "1.0"
+    opts: dict | None = None
+    option_line: int | None = None
+    ports: int | None = None  # [Number of Ports]
+    ports_line: int | None = None
+    nfreq: int | None = None  # [Number of Frequencies]
+    nfreq_line: int | None = None
+    order: str = "21_12"
+    matrix: str = "full"
+    reference: list[float] | None = None
+    ref_pending: int = 0
+    ref_line: int | None = None
+    section: str = "header"  # v2: header -> network -> noise; "info" inside [Begin Information]
+    seen_content: bool = False
+    done: bool = False  # [End]
+    comments: list[str] = field(default_factory=list)
+    data: list[str] = field(default_factory=list)
+    data_lines: list[int] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+
+    def fail(self, message: str, line: int | None = None):
+        raise InputError(message, path=self.path, line=line)
+
+    def warn(self, message: str, line: int | None = None) -> None:
+        self.warnings.append(str(InputError(message, path=self.path, line=line)))
+
+    # ---- one line of each kind
+
+    def keyword(self, s: str, lineno: int) -> None:
+        close = s.find("]")
+        if close < 0:
+            self.fail(f"keyword without closing bracket: {s!r}", lineno)
+        name = " ".join(s[1:close].split()).lower()
+        arg = s[close + 1:].strip()
+        if self.section == "info":
+            if name == "end information":
+                self.section = "header"
+            return
+        if name == "version":
+            if self.seen_content:
+                self.fail("[Version] must come before the option line and the data", lineno)
+            if arg not in ("2.0", "2.1"):
+                self.fail(f"unsupported [Version] {arg!r} (expected 2.0 or 2.1)", lineno)
+            self.version, self.seen_content = arg, True
+            return
+        if self.version == "1.0":
+            self.fail(f"keyword [{s[1:close]}] in a version 1 file (a version 2 file starts with [Version])", lineno)
+        self.reference_complete()
+        if name == "number of ports":
+            self.ports, self.ports_line = _int_keyword(arg, "Number of Ports", self.path, lineno, 1), lineno
+        elif name == "two-port data order":
+            self.order = arg.split()[0] if arg else ""
+            if self.order not in ("12_21", "21_12"):
+                self.fail(f"[Two-Port Data Order] must be 12_21 or 21_12, got {arg!r}", lineno)
+        elif name == "number of frequencies":
+            self.nfreq = _int_keyword(arg, "Number of Frequencies", self.path, lineno, 1)
+            self.nfreq_line = lineno
+        elif name == "number of noise frequencies":
+            _int_keyword(arg, "Number of Noise Frequencies", self.path, lineno, 0)
+        elif name == "reference":
+            if self.ports is None:
+                self.fail("[Reference] before [Number of Ports]", lineno)
+            self.reference, self.ref_pending, self.ref_line = [], self.ports, lineno
+            self.reference_values(arg, lineno)
+        elif name == "matrix format":
+            self.matrix = arg.split()[0].lower() if arg else ""
+            if self.matrix not in _MATRIX_FORMATS:
+                self.fail(f"[Matrix Format] must be Full, Lower or Upper, got {arg!r}", lineno)
+        elif name in ("network data", "noise data", "begin information"):
+            self.section = {"network data": "network", "noise data": "noise", "begin information": "info"}[name]
+        elif name == "end":
+            self.done = True
+        elif name == "mixed-mode order":
+            self.fail("mixed-mode files ([Mixed-Mode Order]) are not supported", lineno)
+        elif name == "end information":
+            self.fail("[End Information] without [Begin Information]", lineno)
+        else:
+            self.fail(f"unknown keyword [{s[1:close]}]", lineno)
+
+    def option(self, s: str, lineno: int) -> None:
+        if self.opts is not None:
+            self.fail(f"second option line (the first is on line {self.option_line})", lineno)
+        if self.data:
+            self.fail("option line after the data", lineno)
+        self.opts = _parse_option_line(s, self.path, lineno, self.warn)
+        self.option_line, self.seen_content = lineno, True
+
+    def reference_values(self, text: str, lineno: int) -> None:
+        """[Reference] values, on its line or continued on the following ones."""
+        for tok in text.split():
+            if not self.ref_pending:
+                self.fail(f"[Reference] holds more than {self.ports} values", lineno)
+            self.reference.append(_number(tok, "[Reference]", self.path, lineno))
+            self.ref_pending -= 1
+
+    def reference_complete(self) -> None:
+        if self.ref_pending:
+            self.fail(f"[Reference] holds fewer than {len(self.reference) + self.ref_pending} values", self.ref_line)
+
+    def data_allowed(self, lineno: int) -> None:
+        """Refuse version 2 data outside [Network Data]; after [Number of Frequencies], warn and read."""
+        if self.version == "1.0" or self.section == "network":
+            return
+        if self.nfreq is None:
+            self.fail("data before [Network Data]", lineno)
+        self.warn("network data follow [Number of Frequencies] without a [Network Data] keyword: "
+                  "read as network data", lineno)
+        self.section = "network"
+
+    # ---- the whole file
+
+    def scan(self, lines: list[str]) -> "_Scan":
+        n_lines = len(lines)
+        i = 0
+        while i < n_lines and not self.done:
+            raw = lines[i]
+            i += 1
+            lineno = i
+            if "!" in raw:
+                raw, _, comment = raw.partition("!")
+                comment = comment.strip()
+                if comment:
+                    self.comments.append(comment)
+            s = raw.strip()
+            if not s:
+                continue
+            if s[0] == "[":
+                self.keyword(s, lineno)
+                continue
+            if self.section == "info":
+                continue
+            if s[0] == "#":
+                self.option(s, lineno)
+                continue
+            if self.ref_pending:
+                self.reference_values(s, lineno)
+                continue
+            if self.section == "noise":
+                continue
+            self.data_allowed(lineno)
+            self.seen_content = True
+            self.data.append(s)
+            self.data_lines.append(lineno)
+            while i < n_lines:  # plain data lines, the bulk of a file: the quick way
+                raw = lines[i]
+                if "!" in raw or "#" in raw or "[" in raw:
+                    break
+                i += 1
+                raw = raw.strip()
+                if raw:
+                    self.data.append(raw)
+                    self.data_lines.append(i)
+        self.reference_complete()
+        if self.opts is None:
+            if self.version != "1.0":  # RI data read with the MA default would be silently wrong
+                self.fail(f"no option line (# <unit> <parameter> <format> R <ohm>): version {self.version} "
+                          "files must have one (Touchstone specification); add it before the data")
+            self.opts = _parse_option_line("#", self.path, None)
+        return self
+
+
+# --------------------------------------------------------------------------- reading: checks and numbers
+
+
+def _port_count(scan: _Scan, n_ports: int | None) -> int:
+    """Ports from the extension (version 1) or [Number of Ports] (version 2), checked against both."""
+    path = scan.path
+    ext_ports = _ports_from_extension(path)
+    if scan.version == "1.0":
+        ports = ext_ports if ext_ports is not None else n_ports
+        if ports is None:
+            scan.fail("the extension does not give the port count of this version 1 file (expected .s1p, .s2p, ... .s99p)")
+        if n_ports is not None and n_ports != ports:
+            scan.fail(f"the extension says {ports} ports but {n_ports} were asked for")
+    else:
+        if scan.ports is None:
+            scan.fail("[Number of Ports] is missing")
+        ports = scan.ports
+        for expected, what in ((ext_ports, "the extension"), (n_ports, "the caller")):
+            if expected is not None and expected != ports:
+                scan.fail(f"[Number of Ports] is {ports} but {what} says {expected}", scan.ports_line)
+    if not 1 <= ports <= MAX_PORTS:
+        scan.fail(f"{ports} ports: only 1 to {MAX_PORTS} ports are supported", scan.ports_line)
+    return ports
+
+
+def _reference_resistances(scan: _Scan, ports: int) -> np.ndarray:
+    """z0 per port (ohm) from [Reference], else the option line's R (one, or one per port)."""
+    if scan.reference is not None:
+        z0 = np.array(scan.reference, dtype=float)
+        if np.any(z0 <= 0):
+            scan.fail("[Reference] resistances must be positive", scan.ref_line)
+        return z0
+    r = scan.opts["r"]
+    if len(r) not in (1, ports):
+        scan.fail(f"option line gives {len(r)} reference resistances for {ports} ports", scan.option_line)
+    return np.broadcast_to(np.array(r, dtype=float), (ports,)).copy()
 
 
 def _fast_table(data: list[str], width: int) -> np.ndarray | None:
@@ -241,11 +577,28 @@ def _fast_table(data: list[str], width: int) -> np.ndarray | None:
     return table
 
 
+def _noise_block_start(parts, counts, width, data_lineno, path) -> int | None:
+    """Index of the data line where a version 1 two-port noise block starts, or None.
+
+    A noise row has 5 values and starts where a frequency row would; it is the noise block when
+    its frequency is not above the previous frequency row's (Touchstone specification, version 1
+    noise parameters). Wrapped network rows (5 + 4 values) are rows, not noise.
+    """
+    offsets = (np.cumsum(counts) - counts) % width  # valid up to the first noise line
+    prev_freq = None
+    for k in np.flatnonzero(offsets == 0):
+        freq = _number(parts[k][0], "frequency", path, data_lineno[k])
+        if counts[k] == 5 and prev_freq is not None and freq <= prev_freq:
+            return int(k)
+        prev_freq = freq
+    return None
+
+
 def _checked_table(data, data_lineno, width, pairs, v1_two_port, path):
     """Frequency rows from data lines, checking every count and token; rows may wrap over lines.
 
     Returns (rows (nf, width), index of the data line where each row starts). A version 1
-    two-port noise block (a 5-value line whose frequency falls) ends the network data.
+    two-port noise block (see :func:`_noise_block_start`) ends the network data.
     """
     parts = [d.split() for d in data]
     counts = np.fromiter(map(len, parts), dtype=np.int64, count=len(parts))
@@ -260,6 +613,12 @@ def _checked_table(data, data_lineno, width, pairs, v1_two_port, path):
                          f"pair), but the file declares more ports ({width} numbers per frequency): a one-port sweep "
                          f"must be named .s1p",
                          path=path, line=data_lineno[0])
+
+
+    if v1_two_port and np.any(counts == 5):
+        k = _noise_block_start(parts, counts, width, data_lineno, path)
+        if k is not None:
+            parts, counts = parts[:k], counts[:k]
     ends = np.cumsum(counts)
     offsets = (ends - counts) % width
     bad = np.flatnonzero(offsets + counts > width)
@@ -297,249 +656,121 @@ def _checked_table(data, data_lineno, width, pairs, v1_two_port, path):
     return values.reshape(-1, width), row_starts
 
 
-def read_touchstone(path, n_ports: int | None = None) -> Touchstone:
-    """Read a Touchstone file (v1.0, v2.0, v2.1; 1 to 4 ports) into S parameters and Hz.
-
-    Version 1 takes the port count from the ``.sNp`` extension (or ``n_ports`` when the name
-    has none); version 2 from ``[Number of Ports]``. A given ``n_ports`` must agree with both.
-    """
-    path = os.fspath(path)
-    text = _read_text(path)
-    lines = text.split("\n")
-
-    version = "1.0"
-    opts: dict | None = None
-    option_lineno = None
-    comments: list[str] = []
-    data: list[str] = []
-    data_lineno: list[int] = []
-    kw_ports = kw_nfreq = None
-    kw_ports_line = kw_nfreq_line = None
-    order = "21_12"
-    matrix = "full"
-    reference: list[float] | None = None
-    ref_pending = 0
-    ref_line = None
-    section = "header"  # v2: header -> network -> noise; "info" inside [Begin Information]
-    seen_content = False
-
-    n_lines = len(lines)
-    i = 0
-    while i < n_lines:
-        raw = lines[i]
-        i += 1
-        lineno = i
-        if "!" in raw:
-            raw, _, comment = raw.partition("!")
-            comment = comment.strip()
-            if comment:
-                comments.append(comment)
-        s = raw.strip()
-        if not s:
-            continue
-        first = s[0]
-        if first == "[":
-            close = s.find("]")
-            if close < 0:
-                raise InputError(f"keyword without closing bracket: {s!r}", path=path, line=lineno)
-            name = " ".join(s[1:close].split()).lower()
-            arg = s[close + 1:].strip()
-            if section == "info":
-                if name == "end information":
-                    section = "header"
-                continue
-            if name == "version":
-                if seen_content:
-                    raise InputError("[Version] must come before the option line and the data",
-                                     path=path, line=lineno)
-                if arg not in ("2.0", "2.1"):
-                    raise InputError(f"unsupported [Version] {arg!r} (expected 2.0 or 2.1)",
-                                     path=path, line=lineno)
-                version = arg
-                seen_content = True
-                continue
-            if version == "1.0":
-                raise InputError(f"keyword [{s[1:close]}] in a version 1 file "
-                                 "(a version 2 file starts with [Version])", path=path, line=lineno)
-            if ref_pending:
-                raise InputError(f"[Reference] holds fewer than {len(reference) + ref_pending} values",
-                                 path=path, line=ref_line)
-            if name == "number of ports":
-                kw_ports = _int_keyword(arg, "Number of Ports", path, lineno, 1)
-                kw_ports_line = lineno
-            elif name == "two-port data order":
-                order = arg.split()[0] if arg else ""
-                if order not in ("12_21", "21_12"):
-                    raise InputError(f"[Two-Port Data Order] must be 12_21 or 21_12, got {arg!r}",
-                                     path=path, line=lineno)
-            elif name == "number of frequencies":
-                kw_nfreq = _int_keyword(arg, "Number of Frequencies", path, lineno, 1)
-                kw_nfreq_line = lineno
-            elif name == "number of noise frequencies":
-                _int_keyword(arg, "Number of Noise Frequencies", path, lineno, 0)
-            elif name == "reference":
-                if kw_ports is None:
-                    raise InputError("[Reference] before [Number of Ports]", path=path, line=lineno)
-                reference, ref_pending, ref_line = [], kw_ports, lineno
-                for tok in arg.split():
-                    if not ref_pending:
-                        raise InputError(f"[Reference] holds more than {kw_ports} values",
-                                         path=path, line=lineno)
-                    reference.append(_number(tok, "[Reference]", path, lineno))
-                    ref_pending -= 1
-            elif name == "matrix format":
-                matrix = arg.split()[0].lower() if arg else ""
-                if matrix not in _MATRIX_FORMATS:
-                    raise InputError(f"[Matrix Format] must be Full, Lower or Upper, got {arg!r}",
-                                     path=path, line=lineno)
-            elif name == "network data":
-                section = "network"
-            elif name == "noise data":
-                section = "noise"
-            elif name == "begin information":
-                section = "info"
-            elif name == "end":
-                break
-            elif name == "mixed-mode order":
-                raise InputError("mixed-mode files ([Mixed-Mode Order]) are not supported",
-                                 path=path, line=lineno)
-            elif name == "end information":
-                raise InputError("[End Information] without [Begin Information]", path=path, line=lineno)
-            else:
-                raise InputError(f"unknown keyword [{s[1:close]}]", path=path, line=lineno)
-            continue
-        if section == "info":
-            continue
-        if first == "#":
-            if opts is not None:
-                raise InputError(f"second option line (the first is on line {option_lineno})",
-                                 path=path, line=lineno)
-            if data:
-                raise InputError("option line after the data", path=path, line=lineno)
-            opts = _parse_option_line(s, path, lineno)
-            option_lineno = lineno
-            seen_content = True
-            continue
-        if ref_pending:  # [Reference] continued on the following lines
-            for tok in s.split():
-                if not ref_pending:
-                    raise InputError(f"[Reference] holds more than {kw_ports} values", path=path, line=lineno)
-                reference.append(_number(tok, "[Reference]", path, lineno))
-                ref_pending -= 1
-            continue
-        if section == "noise":
-            continue
-        if version != "1.0" and section != "network":
-            raise InputError("data before [Network Data]", path=path, line=lineno)
-        seen_content = True
-        data.append(s)
-        data_lineno.append(lineno)
-        while i < n_lines:  # plain data lines, the bulk of a file: the quick way
-            raw = lines[i]
-            if "!" in raw or "#" in raw or "[" in raw:
-                break
-            i += 1
-            raw = raw.strip()
-            if raw:
-                data.append(raw)
-                data_lineno.append(i)
-
-    if ref_pending:
-        raise InputError(f"[Reference] holds fewer than {len(reference) + ref_pending} values",
-                         path=path, line=ref_line)
-    if opts is None:
-        opts = _parse_option_line("#", path, None)
-
-    # ---- port count
-    ext_ports = _ports_from_extension(path)
-    if version == "1.0":
-        ports = ext_ports if ext_ports is not None else n_ports
-        if ports is None:
-            raise InputError("the extension does not give the port count of this version 1 file "
-                             "(expected .s1p .. .s4p)", path=path)
-        if n_ports is not None and n_ports != ports:
-            raise InputError(f"the extension says {ports} ports but {n_ports} were asked for", path=path)
-    else:
-        if kw_ports is None:
-            raise InputError("[Number of Ports] is missing", path=path)
-        ports = kw_ports
-        for expected, what in ((ext_ports, "the extension"), (n_ports, "the caller")):
-            if expected is not None and expected != ports:
-                raise InputError(f"[Number of Ports] is {ports} but {what} says {expected}",
-                                 path=path, line=kw_ports_line)
-    if not 1 <= ports <= _MAX_PORTS:
-        raise InputError(f"{ports} ports: only 1 to {_MAX_PORTS} ports are supported", path=path)
-    if matrix != "full" and ports == 1:
-        matrix = "full"
-
-    # ---- z0
-    if reference is not None:
-        z0 = np.array(reference, dtype=float)
-        if np.any(z0 <= 0):
-            raise InputError("[Reference] resistances must be positive", path=path, line=ref_line)
-    else:
-        r = opts["r"]
-        if len(r) not in (1, ports):
-            raise InputError(f"option line gives {len(r)} reference resistances for {ports} ports",
-                             path=path, line=option_lineno)
-        z0 = np.broadcast_to(np.array(r, dtype=float), (ports,)).copy()
-
-    if not data:
-        raise InputError("no network data in the file", path=path)
-
-    # ---- numbers
-    pairs = ports * ports if matrix == "full" else ports * (ports + 1) // 2
+def _network_rows(scan: _Scan, ports: int, pairs: int) -> tuple[np.ndarray, np.ndarray]:
+    """(rows (nf, 1 + 2 pairs) of numbers as written, the line each row starts on)."""
+    if not scan.data:
+        scan.fail("no network data in the file")
     width = 1 + 2 * pairs
-    rows = _fast_table(data, width)
+    rows = _fast_table(scan.data, width)
     if rows is not None:
-        row_starts = np.arange(len(data))
+        row_starts = np.arange(len(scan.data))
     else:
-        rows, row_starts = _checked_table(data, data_lineno, width, pairs, version == "1.0" and ports == 2, path)
-    row_lines = np.asarray(data_lineno)[row_starts]
-    freq = frequency_hz_from_file(rows[:, 0], opts["unit"])
+        rows, row_starts = _checked_table(scan.data, scan.data_lines, width, pairs,
+                                          scan.version == "1.0" and ports == 2, scan.path)
+    return rows, np.asarray(scan.data_lines)[row_starts]
+
+
+def _frequencies_hz(scan: _Scan, rows: np.ndarray, row_lines: np.ndarray) -> np.ndarray:
+    """The first column in Hz: finite, non-negative, strictly increasing, as many as announced."""
+    unit = scan.opts["unit"]
+    freq = frequency_hz_from_file(rows[:, 0], unit)  # on the decimal grid the file states
     if not np.all(np.isfinite(freq)):
         k = int(np.argmax(~np.isfinite(freq)))
-        raise InputError(f"frequency {rows[k, 0]:g} {opts['unit']} is too large", path=path, line=int(row_lines[k]))
+        scan.fail(f"frequency {rows[k, 0]:g} {unit} is too large", int(row_lines[k]))
     if freq[0] < 0:
-        raise InputError(f"negative frequency {rows[0, 0]:g}", path=path, line=int(row_lines[0]))
+        scan.fail(f"negative frequency {rows[0, 0]:g}", int(row_lines[0]))
     step = np.diff(freq)
     if np.any(step <= 0):
         k = int(np.argmax(step <= 0)) + 1
         kind = "duplicated" if step[k - 1] == 0 else "decreasing"
-        raise InputError(f"frequencies must increase: {rows[k, 0]:g} is {kind} after {rows[k - 1, 0]:g}",
-                         path=path, line=int(row_lines[k]))
-    if kw_nfreq is not None and kw_nfreq != len(freq):
-        raise InputError(f"[Number of Frequencies] is {kw_nfreq} but the file holds {len(freq)}",
-                         path=path, line=kw_nfreq_line)
+        scan.fail(f"frequencies must increase: {rows[k, 0]:g} is {kind} after {rows[k - 1, 0]:g}",
+                  int(row_lines[k]))
+    if scan.nfreq is not None and scan.nfreq != len(freq):
+        scan.fail(f"[Number of Frequencies] is {scan.nfreq} but the file holds {len(freq)}", scan.nfreq_line)
+    return freq
 
+
+def _complex_values(scan: _Scan, rows: np.ndarray, row_lines: np.ndarray) -> np.ndarray:
+    """The pairs as complex numbers (nf, pairs) from RI, MA or DB (dB = 20 log10 |S|, angle in degrees)."""
     a, b = rows[:, 1::2], rows[:, 2::2]
-    fmt = opts["format"]
+    fmt = scan.opts["format"]
     if fmt == "ri":
-        flat = a + 1j * b
-    else:
-        mag = a if fmt == "ma" else 10.0 ** (a / 20.0)
-        flat = mag * np.exp(1j * np.deg2rad(b))
-    nf = len(freq)
+        return a + 1j * b
+    if fmt == "ma":
+        return a * np.exp(1j * np.deg2rad(b))
+    with np.errstate(over="ignore"):
+        mag = 10.0 ** (a / 20.0)
+    if not np.all(np.isfinite(mag)):
+        r, c = np.argwhere(~np.isfinite(mag))[0]
+        scan.fail(f"DB value {a[r, c]:g} overflows: |S| = 10^(dB/20) must stay below the largest "
+                  f"floating-point number, so dB below {20 * np.log10(np.finfo(float).max):.0f}",
+                  int(row_lines[r]))
+    return mag * np.exp(1j * np.deg2rad(b))
+
+
+def _matrices(scan: _Scan, flat: np.ndarray, ports: int) -> np.ndarray:
+    """(nf, ports, ports) from the pairs in file order: Full (row-major; version 1 two-port
+    21_12), or the Lower / Upper triangle of a reciprocal network."""
+    nf = flat.shape[0]
+    matrix = "full" if ports == 1 else scan.matrix
     if matrix == "full":
         mat = flat.reshape(nf, ports, ports)
-        if ports == 2 and order == "21_12":
+        if ports == 2 and scan.order == "21_12":
             mat = mat.transpose(0, 2, 1)
-        mat = np.ascontiguousarray(mat)
-    else:
-        mat = np.zeros((nf, ports, ports), dtype=complex)
-        rr, cc = np.tril_indices(ports) if matrix == "lower" else np.triu_indices(ports)
-        mat[:, rr, cc] = flat
-        mat[:, cc, rr] = flat
+        return np.ascontiguousarray(mat)
+    mat = np.zeros((nf, ports, ports), dtype=complex)
+    rr, cc = np.tril_indices(ports) if matrix == "lower" else np.triu_indices(ports)
+    mat[:, rr, cc] = flat
+    mat[:, cc, rr] = flat
+    return mat
 
-    param = opts["parameter"]
-    if param != "s":
-        if version == "1.0":  # normalised to R (Touchstone specification, version 1.0)
-            mat = mat * z0[:, None] if param == "z" else mat / z0[:, None]
-        from skrf.network import y2s, z2s
 
-        mat = (z2s if param == "z" else y2s)(mat, np.broadcast_to(z0, (nf, ports)))
-    return Touchstone(frequency_hz=freq, s=mat, z0=z0, version=version,
-                      source_parameter=param.upper(), comments=tuple(comments))
+def _as_s(mat: np.ndarray, parameter: str, version: str, z0: np.ndarray) -> np.ndarray:
+    """S from S, Y or Z (version 1 Y and Z are normalised to R); scikit-rf's z2s / y2s."""
+    if parameter == "s":
+        return mat
+    if version == "1.0":  # normalised to R (Touchstone specification, version 1.0)
+        mat = mat * z0[:, None] if parameter == "z" else mat / z0[:, None]
+    from skrf.network import y2s, z2s
+
+    nf, ports = mat.shape[:2]
+    return (z2s if parameter == "z" else y2s)(mat, np.broadcast_to(z0, (nf, ports)))
+
+
+def read_touchstone(path, n_ports: int | None = None) -> Touchstone:
+    """Read a Touchstone file (v1.0, v2.0, v2.1; 1 to 99 ports) into S parameters and Hz.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file. Version 1 takes the port count from the ``.sNp`` extension (or ``n_ports``
+        when the name has none); version 2 from ``[Number of Ports]``.
+    n_ports : int, optional
+        Expected port count; must agree with the extension and ``[Number of Ports]``.
+
+    Returns
+    -------
+    Touchstone
+        Frequencies in Hz, S (converted from Y or Z when needed), z0 in ohm, comments and the
+        warnings of anything tolerated.
+
+    Raises
+    ------
+    InputError
+        One line naming the file (and line) for every problem.
+    """
+    path = os.fspath(path)
+    scan = _Scan(path).scan(_read_text(path, n_ports).split("\n"))
+    ports = _port_count(scan, n_ports)
+    z0 = _reference_resistances(scan, ports)
+    pairs = ports * ports if scan.matrix == "full" or ports == 1 else ports * (ports + 1) // 2
+    rows, row_lines = _network_rows(scan, ports, pairs)
+    freq = _frequencies_hz(scan, rows, row_lines)
+    mat = _matrices(scan, _complex_values(scan, rows, row_lines), ports)
+    parameter = scan.opts["parameter"]
+    return Touchstone(frequency_hz=freq, s=_as_s(mat, parameter, scan.version, z0), z0=z0,
+                      version=scan.version, source_parameter=parameter.upper(),
+                      comments=tuple(scan.comments), warnings=tuple(scan.warnings))
 
 
 def _guarded(func, *args):
@@ -569,9 +800,24 @@ def _map_files(func, arg_lists, workers: int | None):
 
 
 def read_many(paths, n_ports: int | None = None, workers: int | None = None) -> list[Touchstone]:
-    """Read many files, in the order given; a process pool is used for many files on several cores.
+    """Read many Touchstone files, in the order given.
 
-    ``workers=1`` forces a serial read. The first failing file (in order) raises its InputError.
+    Parameters
+    ----------
+    paths : iterable of str or os.PathLike
+    n_ports : int, optional
+        As in :func:`read_touchstone`.
+    workers : int, optional
+        A process pool is used for many files on several cores; ``workers=1`` reads serially.
+
+    Returns
+    -------
+    list of Touchstone
+
+    Raises
+    ------
+    InputError
+        Of the first failing file, in order.
     """
     return _map_files(read_touchstone, [(os.fspath(p), n_ports) for p in paths], workers)
 
@@ -585,10 +831,25 @@ class Echo:
     n_ports: int
     parameter: str | None
     sha256: str
+    warnings: tuple[str, ...] = ()  # the reader's, one line each
 
 
 def read_echo(path, parameter: str | None = None) -> Echo:
-    """Read a file and keep only ``parameter`` (default S11 for 1-port, S21 for 2-port files)."""
+    """Read a file and keep only the S-parameter that carries a target's echo.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    parameter : str, optional
+        ``"Sij"`` (see :func:`parameter_index`); default S11 for 1-port, S21 for 2-port files,
+        none for more ports (``values`` is then None).
+
+    Returns
+    -------
+    Echo
+        ``frequency_hz`` (Hz), ``values`` (complex, or None when the file has no such
+        parameter), ``n_ports``, ``parameter``, ``sha256`` of the file, reader ``warnings``.
+    """
     ts = read_touchstone(path)
     name = parameter or {1: "S11", 2: "S21"}.get(ts.n_ports)
     values = None
@@ -596,7 +857,7 @@ def read_echo(path, parameter: str | None = None) -> Echo:
         i, j = parameter_index(name)
         if i < ts.n_ports and j < ts.n_ports:
             values = np.ascontiguousarray(ts.s[:, i, j])
-    return Echo(ts.frequency_hz, values, ts.n_ports, name, file_sha256(path))
+    return Echo(ts.frequency_hz, values, ts.n_ports, name, file_sha256(path), ts.warnings)
 
 
 def read_echoes(paths, parameters, workers: int | None = None) -> list[Echo]:
@@ -609,7 +870,17 @@ def read_echoes(paths, parameters, workers: int | None = None) -> list[Echo]:
 
 
 def file_sha256(path) -> str:
-    """Hex SHA-256 digest of the file's raw bytes."""
+    """Hex SHA-256 digest of a file's raw bytes (FIPS 180-4), read in 1 MiB blocks.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+
+    Returns
+    -------
+    str
+        64 lowercase hex digits.
+    """
     path = os.fspath(path)
     digest = hashlib.sha256()
     try:
@@ -630,13 +901,30 @@ def file_sha256(path) -> str:
 
 def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GHz", z0=50.0,
                      comments=(), two_port_order="12_21", matrix_format="Full", digits=12) -> None:
-    """Write S parameters (``s`` (nf, n, n), or (nf,) for one port; frequency in Hz) as Touchstone.
+    """Write S parameters as a Touchstone file, atomically (temporary name, then rename).
 
-    ``version`` "1.0" (the two-port order is then always S11 S21 S12 S22, the matrix Full, and
-    per-port z0 goes on the option line as in the 2.1 specification's version 1.1), "2.0" or
-    "2.1" (``two_port_order`` and ``matrix_format`` apply, per-port z0 goes in ``[Reference]``).
-    Values carry ``digits`` significant digits (frequencies at least 15). The file is written under a temporary name in
-    the same folder, then renamed over ``path``.
+    Parameters
+    ----------
+    path : str or os.PathLike
+        ``.sNp`` for version 1 (N must match), ``.ts`` or ``.sNp`` for version 2.
+    frequency_hz : array_like
+        (nf,) Hz, non-negative, strictly increasing.
+    s : array_like
+        Complex (nf, n, n) with ``s[:, i-1, j-1]`` = Sij, or (nf,) for one port.
+    version : {"1.0", "2.0", "2.1"}
+        Version 1.0: two-port order always S11 S21 S12 S22, matrix Full, per-port z0 on the
+        option line (as the 2.1 specification's version 1.1). Version 2: ``two_port_order``
+        and ``matrix_format`` apply, per-port z0 goes in ``[Reference]``.
+    fmt : {"RI", "MA", "DB"}
+        Pair format (DB: 20 log10 |S| and the angle in degrees).
+    unit : {"Hz", "kHz", "MHz", "GHz"}
+    z0 : float or array_like
+        Reference resistance(s), ohm: one, or one per port.
+    comments : iterable of str
+        Plain ASCII lines written as ``!`` comments.
+    digits : int
+        Significant digits of the values (frequencies keep at least 15). Rows wrap after each
+        matrix row and after every 4 pairs (Touchstone specification).
     """
     path = os.fspath(path)
     version = str(version)
@@ -665,8 +953,8 @@ def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GH
         raise InputError(f"shapes do not fit: frequency {f.shape}, s {s.shape} "
                          "(expected (nf,) and (nf, n, n) or (nf,))", path=path)
     ports = s.shape[1]
-    if not 1 <= ports <= _MAX_PORTS:
-        raise InputError(f"{ports} ports: only 1 to {_MAX_PORTS} are supported", path=path)
+    if not 1 <= ports <= MAX_PORTS:
+        raise InputError(f"{ports} ports: only 1 to {MAX_PORTS} are supported", path=path)
     if not (np.all(np.isfinite(f)) and np.all(np.isfinite(s))):
         raise InputError("frequency and s must be finite (no NaN or Inf)", path=path)
     if f[0] < 0 or np.any(np.diff(f) <= 0):
@@ -716,13 +1004,13 @@ def write_touchstone(path, frequency_hz, s, *, version="1.0", fmt="RI", unit="GH
     fnum = f"%.{max(digits, 15)}g"  # frequencies keep full precision: the grid must stay uniform
     if ports <= 2:
         row_fmt = " ".join([fnum] + [num] * (table.shape[1] - 1))
-    else:  # a frequency row wraps after each matrix row
-        lines, k = [], 0
+    else:  # a frequency row wraps after each matrix row, and after every 4 pairs within it
+        lines = []
         for r in range(ports):
             n_in_row = int(np.count_nonzero(rr == r))
-            cells = [num] * (2 * n_in_row)
-            lines.append(" ".join(([fnum] if r == 0 else []) + cells))
-            k += n_in_row
+            for start in range(0, n_in_row, 4):
+                cells = [num] * (2 * min(4, n_in_row - start))
+                lines.append(" ".join(([fnum] if not lines else []) + cells))
         row_fmt = "\n".join(lines)
     body = "\n".join(row_fmt % tuple(row) for row in table.tolist())
 

@@ -47,7 +47,7 @@ REFUSE_CASES = {
     "truncated.s1p": (3, "truncated final row"),
     "empty.s1p": (None, "no network data"),
     "binary.s1p": (3, "binary content"),
-    "non_utf8.s1p": (1, "non-UTF-8"),
+    "non_utf8_data.s1p": (3, "non-UTF-8 content (byte 0xb0) outside a comment"),
     "nan.s1p": (3, "not a finite number"),
     "inf.s1p": (3, "not a finite number"),
     "frequency_overflow.s1p": (2, "frequenc"),
@@ -101,8 +101,8 @@ def test_long_comment_is_kept_whole():
 
 
 def test_corpus_counts():
-    """Keeps the counts in the closing note honest: 11 read-correctly files, 13 + 7 refused."""
-    assert len(READ_CASES) == 11
+    """Keeps the counts in the closing note honest: 12 read-correctly files, 13 + 7 refused."""
+    assert len(READ_CASES) == 12
     assert sorted(REFUSE_CASES) == sorted(p.name for p in (CORPUS / "refuse").iterdir())
     assert sorted(MANIFEST_CASES) == sorted(p.name for p in (CORPUS / "manifests").iterdir() if p.name != "valid.toml")
 

@@ -365,7 +365,7 @@ BAD_TEXTS = [
     # (name, text, line, words in the message)   -- Touchstone specification, syntax rules
     ("unknown_option", "# GHz S MA R 50 X\n1 0.5 0\n", 1, "unknown token 'X'"),
     ("second_option", "# GHz S MA R 50\n# MHz S RI R 50\n1 0.5 0\n", 2, "second option line"),
-    ("r_without_value", "# GHz S MA R\n1 0.5 0\n", 1, "R must be followed"),
+    ("r_not_a_number", "# GHz S MA R x50\n1 0.5 0\n", 1, "unknown token 'x50'"),
     ("unit_twice", "# GHz MHz\n1 0.5 0\n", 1, "given twice"),
     ("short_row", "# GHz S MA R 50\n1 0.5 0\n2 0.5\n3 0.5 0\n", 3, "wrong count of values"),
     ("long_row", "# GHz S MA R 50\n1 0.5 0\n2 0.5 0 7\n", 3, "this row has 4"),
