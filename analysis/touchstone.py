@@ -602,19 +602,11 @@ def _checked_table(data, data_lineno, width, pairs, v1_two_port, path):
     """
     parts = [d.split() for d in data]
     counts = np.fromiter(map(len, parts), dtype=np.int64, count=len(parts))
-    if v1_two_port:
-        for k in np.flatnonzero(counts == 5):
-            if k > 0 and _number(parts[k][0], "frequency", path, data_lineno[k]) < \
-                    _number(parts[k - 1][0], "frequency", path, data_lineno[k - 1]):
-                parts, counts = parts[:k], counts[:k]
-                break
     if width > 3 and counts.size > 1 and np.all(counts == 3):
         raise InputError(f"every data row holds 3 values, as a one-port file does (the frequency and one complex "
                          f"pair), but the file declares more ports ({width} numbers per frequency): a one-port sweep "
                          f"must be named .s1p",
                          path=path, line=data_lineno[0])
-
-
     if v1_two_port and np.any(counts == 5):
         k = _noise_block_start(parts, counts, width, data_lineno, path)
         if k is not None:
