@@ -16,7 +16,7 @@ from . import __version__
 from .errors import InputError
 
 COMMANDS = ("inspect", "process", "reference", "simulate", "history", "compare", "revision",
-            "report", "serve", "process-many", "demo")
+            "report", "serve", "process-many", "demo", "image")
 _NEGATIVE_VALUE = re.compile(r"^-(\d|\.\d)")
 
 

@@ -678,7 +678,11 @@ def _noise_gain(result, target) -> np.ndarray | None:
 
 def image_of_result(result, target: str, pol: str | None = None, sector_deg=None, band_hz=None,
                     settings: ImageSettings | None = None, extent_m=None) -> TargetImage:
-    """Image of a calibrated target of a :class:`cloakrcs.process.ProcessingResult` (valid band by default)."""
+    """Image of a calibrated target of a :class:`cloakrcs.process.ProcessingResult`.
+
+    Band: ``band_hz`` (inside the valid band), else the run's reporting band; sector:
+    ``sector_deg``, else :func:`default_sector`.
+    """
     if target not in result.targets:
         known = ", ".join(n for n, t in result.targets.items() if t.role != "reference")
         raise InputError(f"no target {target!r} in this run (targets: {known})")
@@ -695,7 +699,8 @@ def image_of_result(result, target: str, pol: str | None = None, sector_deg=None
             raise InputError(f"band {band_hz[0] / 1e9:g}-{band_hz[1] / 1e9:g} GHz reaches outside the valid band "
                              f"{fv[0] / 1e9:.4g}-{fv[-1] / 1e9:.4g} GHz")
     else:
-        band_hz = (float(f[valid][0]), float(f[valid][-1]))
+        fb = f[result.band_mask]
+        band_hz = (float(fb[0]), float(fb[-1]))
     s = settings or ImageSettings(floor_margin_db=result.settings.get("floor_margin_db", 10.0))
     if extent_m is not None:
         s = replace(s, extent_m=extent_m)
