@@ -64,6 +64,7 @@ POLAR_MAX_SECTOR_DEG = 30.0  # auto: polar format up to this sector width, back-
 DEFAULT_SECTOR_DEG = (-15.0, 15.0)  # when none is given and the angles span more than MAX_DEFAULT_SPAN_DEG
 MAX_DEFAULT_SPAN_DEG = 60.0
 MIN_ANGLES = 3
+GATE_EXTENT_FACTOR = 1.2  # default down-range extent: the whole gate, soft edges included (span + 20 % edge)
 _BP_OVERSAMPLE = 16  # back-projection: range profiles zero-padded this many times (linear interpolation)
 
 
@@ -441,8 +442,10 @@ def make_image(amplitude, frequency_hz, angles_deg, settings: ImageSettings | No
     """Image of one target and polarization: amplitude (n_angles, n_freq) complex (m) over the sorted axes.
 
     ``floor_m2`` and ``noise_gain`` (per frequency, same grid) give the image floor; without
-    them it is unknown. The scene extent defaults to the gate span (down-range) and the
-    smaller of the span and the angular step's unambiguous cross-range.
+    them it is unknown. The scene extent defaults to the whole gate (1.2 span, soft edges
+    included) down-range and the angular step's unambiguous cross-range 1 / (q_max dtheta_step):
+    the polar-format grid then holds everything the gated data can contain, noise included,
+    without folding it into the image.
     """
     s = (settings or ImageSettings()).checked()
     f_all = np.asarray(frequency_hz, dtype=float)
@@ -461,7 +464,7 @@ def make_image(amplitude, frequency_hz, angles_deg, settings: ImageSettings | No
     if method == "auto":
         method = "polar" if width <= POLAR_MAX_SECTOR_DEG else "backprojection"
     span = gate_span_m or 1.0
-    extent = s.extent_m or (span, min(span, unambiguous_cross_range_m(f, d)))
+    extent = s.extent_m or (GATE_EXTENT_FACTOR * span, unambiguous_cross_range_m(f, d))
     if method == "polar":
         img, psf, grid = polar_format_image(a, f, d, s, extent)
     else:
