@@ -808,3 +808,38 @@ def to_dataset(img: TargetImage, baseline: TargetImage | None = None) -> xr.Data
         attrs["baseline"] = baseline.target
         attrs["baseline_floor_dbsm"] = baseline.floor_dbsm if baseline.floor_dbsm is not None else np.nan
     return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def tracks_from_store(history_rows: list[dict], centre_rows: list[dict]) -> list[dict]:
+    """Tracked centres per prototype and polarization from stored rows (``cloakrcs history --centres``).
+
+    Order: each prototype's baselines, then its revisions in ``history`` order; a label measured
+    in several campaigns uses its newest (date, run). Returns [{prototype, polarization,
+    revisions, tracks, sentences}].
+    """
+    out = []
+    for proto in dict.fromkeys(r["prototype"] for r in history_rows):
+        hist = [r for r in history_rows if r["prototype"] == proto]
+        names: list[tuple[str, str]] = []  # (subject name, label)
+        for r in hist:
+            if (r["baseline"], r["baseline"]) not in names and all(n != r["baseline"] for n, _ in names):
+                names.append((r["baseline"], r["baseline"]))
+        for r in hist:
+            if all(n != r["subject"] for n, _ in names):
+                names.append((r["subject"], r["revision"]))
+        mine = [c for c in centre_rows if c["prototype"] == proto]
+        for pol in dict.fromkeys(c["polarization"] for c in mine):
+            entries = []
+            for name, label in names:
+                rows = [c for c in mine if c["target"] == name and c["polarization"] == pol]
+                if not rows:
+                    continue
+                newest = max((c.get("date") or "", c["run_id"]) for c in rows)
+                rows = [c for c in rows if ((c.get("date") or ""), c["run_id"]) == newest]
+                entries.append({"revision": label, "centres": rows})
+            if entries:
+                revs = [e["revision"] for e in entries]
+                tracks = track_centres(entries)
+                out.append({"prototype": proto, "polarization": pol, "revisions": revs, "tracks": tracks,
+                            "sentences": describe_tracks(tracks, revs)})
+    return out
