@@ -192,7 +192,9 @@ def main_lobe_factor(weights) -> float:
 
     The magnitude of the weights' discrete-time Fourier transform, zero-padded finely; the
     half-power crossing is found by linear interpolation. About 0.886 (n - 1)/n for a
-    rectangular window (the sinc's -3 dB width, in units of 1/aperture).
+    rectangular window (the sinc's -3 dB width, in units of 1/aperture). A response that never
+    falls to half power (a strongly tapered window of very few samples) counts as one whole
+    sampling period wide, n - 1.
     """
     w = np.asarray(weights, dtype=float)
     n = w.size
@@ -201,9 +203,10 @@ def main_lobe_factor(weights) -> float:
     m = scipy.fft.next_fast_len(max(64 * n, 8192))
     spec = np.abs(np.fft.fft(w, m)) ** 2
     spec /= spec[0] if spec[0] > 0 else 1.0
-    half = int(np.argmax(spec[: m // 2] < 0.5))
-    if half == 0:
-        return float("nan")
+    below = spec[: m // 2 + 1] < 0.5
+    if not below.any():  # the response never falls 3 dB (a window of a few samples): a whole period wide
+        return float(n - 1)
+    half = int(np.argmax(below))
     y0, y1 = spec[half - 1], spec[half]
     u = (half - 1 + (y0 - 0.5) / (y0 - y1)) / m  # cycles per sample at half power
     return float(2 * u * (n - 1))
