@@ -9,6 +9,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from . import imaging
+from .errors import InputError
 from .figures import _base_layout
 
 MAX_PIXELS = 220  # per axis in a figure (images are decimated by striding beyond this)
@@ -155,3 +156,45 @@ def report_images(result, pol: str | None = None):
         extent = img.settings.extent_m
         images[name] = img
     return images, pol
+
+
+def report_section(result, figure_html) -> str:
+    """The report's imaging section: each subject's image (one polarization), the difference
+    images of each revision against its baseline, the stored centres and the tracked centres.
+
+    ``figure_html(id, caption, figure)`` renders one figure as the report does.
+    """
+    images, pol = report_images(result)
+    if not images:
+        return ('<p class="note">No subject was measured at enough angles in the sector to image '
+                f'(at least {imaging.MIN_ANGLES}).</p>')
+    first = next(iter(images.values()))
+    parts = [f"<p>Calibrated ISAR images (README, Imaging): {_esc(first.settings.window_text())}; "
+             f"{_esc(resolution_text(first))}; sector {first.sector_deg[0]:g} to {first.sector_deg[1]:g} deg, "
+             f"{first.frequency_hz[0] / 1e9:.3f}-{first.frequency_hz[-1] / 1e9:.3f} GHz. Down-range is positive "
+             "away from the antenna, cross-range positive on the side that moves towards the antenna as the "
+             "turntable angle increases; the peak pixel of an isolated point equals its RCS. Centres by CLEAN "
+             "(Hogbom 1974), stopped at the image floor plus 3 dB; crossed markers are floor-limited.</p>"]
+    for name, img in images.items():
+        cs = [c for c in result.centres if c["target"] == name and c["polarization"] == pol]
+        parts.append(figure_html(f"fig-image-{name}-{pol}", image_caption(img), fig_image(img, 40.0, cs)))
+        base = result.targets[name].baseline
+        if base in images:
+            try:
+                fd, fc = fig_difference(img, images[base])
+            except InputError:  # grids differ (other angles): the images are shown without a difference
+                continue
+            parts.append(figure_html(f"fig-image-diff-{name}-{pol}",
+                                     f"Complex difference {name} - {base}, {pol}: what the cloak changed.", fd))
+            parts.append(figure_html(f"fig-image-change-{name}-{pol}",
+                                     f"Per-pixel change 10 log10(σ_{name} / σ_{base}), {pol}, where both images "
+                                     f"clear their floors by the floor margin; blue: scattering removed.", fc))
+    parts.append("<h3>Scattering centres</h3>" + centres_table_html(result.centres, "centres-table"))
+    for p in dict.fromkeys(c["polarization"] for c in result.centres):
+        tracks, revisions = imaging.tracked_centres_of_result(result, p)
+        if tracks:
+            parts.append(f"<h3>Centres tracked across revisions, {_esc(p)}</h3>"
+                         + tracks_table_html(tracks, revisions, f"tracks-{p}")
+                         + "<ul>" + "".join(f"<li>{_esc(s)}</li>" for s in imaging.describe_tracks(tracks, revisions))
+                         + "</ul>")
+    return "".join(parts)
