@@ -153,21 +153,16 @@ class TargetImage:
 # ----------------------------------------------------------------------------- windows
 
 def window_samples(name: str, n: int, kaiser_beta=6.0, nbar=4, sll_db=35.0) -> np.ndarray:
-    """Symmetric window of n samples (scipy.signal.windows' definitions; Kaiser and Hann from numpy)."""
-    n = int(n)
-    if n < 1:
-        raise InputError(f"window length must be at least 1, got {n}")
-    if name == "kaiser":
-        return np.kaiser(n, float(kaiser_beta))
-    if name == "hann":
-        return np.hanning(n) if n > 1 else np.ones(1)
-    if name == "rect":
-        return np.ones(n)
+    """Symmetric window of n samples: Kaiser, Hann, rect as timedomain.frequency_window; Taylor from scipy."""
     if name == "taylor":
+        if int(n) < 1:
+            raise InputError(f"window length must be at least 1, got {n}")
         from scipy.signal.windows import taylor  # imported only here: scipy.signal is slow to import
 
-        return taylor(n, nbar=int(nbar), sll=float(sll_db), norm=True, sym=True)
-    raise InputError(f"unknown window {name!r}: choose one of {', '.join(WINDOWS)}")
+        return taylor(int(n), nbar=int(nbar), sll=float(sll_db), norm=True, sym=True)
+    from .timedomain import frequency_window
+
+    return frequency_window(name, n, kaiser_beta)
 
 
 def window_at(name: str, t, kaiser_beta=6.0, nbar=4, sll_db=35.0) -> np.ndarray:
