@@ -17,7 +17,7 @@ from . import __version__
 from .errors import InputError
 
 COMMANDS = ("inspect", "process", "reference", "simulate", "history", "compare", "revision",
-            "report", "export", "serve", "process-many", "demo")
+            "report", "export", "serve", "process-many", "demo", "image")
 _NEGATIVE_VALUE = re.compile(r"^-(\d|\.\d)")
 
 

@@ -127,6 +127,7 @@ class ProcessingResult:
     settings: dict[str, Any]
     warnings: list[str]
     reductions: dict[tuple[str, str], xr.Dataset]  # (subject, polarization) -> reduction_db, bound
+    centres: list[dict] = field(default_factory=list)  # scattering centres per subject (cloakrcs.imaging)
 
     def rcs_table(self) -> pd.DataFrame:
         """rcs.csv rows: every subject, over the valid band (string columns categorical)."""
@@ -189,7 +190,7 @@ class ProcessingResult:
         return {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
                 "check_failed": bool(failed), "failed_checks": failed,
                 "settings": self.settings, "checks": self.checks, "floor": self.floor,
-                "metrics": self.metrics, "warnings": self.warnings}
+                "metrics": self.metrics, "warnings": self.warnings, "scattering_centres": self.centres}
 
 
 def check_failure_text(c: dict) -> str:
@@ -446,11 +447,16 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         "files": {_rel(p, m.folder): h for p, h in sorted(hashes.items())},
         "process_settings": settings.as_dict(),
     }
-    return ProcessingResult(
+    result = ProcessingResult(
         campaign=m.name, prototype=m.prototype, date=m.date.isoformat() if m.date else None,
         frequency_hz=f, valid_mask=valid, band_mask=band_mask, targets=targets, checks=checks,
         floor=floor_summary, metrics=metric_rows, settings=settings_out, warnings=warnings,
         reductions=reductions)
+    from . import imaging
+
+    result.centres = imaging.result_centres(result)
+    tick("scattering centres")
+    return result
 
 
 def _rel(path: str, folder) -> str:

@@ -541,6 +541,12 @@ def plotly_bundle_b64() -> str:
     return base64.b64encode(gzip.compress(get_plotlyjs().encode("utf-8"), 9, mtime=0)).decode("ascii")
 
 
+def _imaging_section(result) -> str:
+    from .imaging_figures import report_section
+
+    return report_section(result, lambda fid, caption, fig: _figure_html(FigureSpec(fid, "imaging", caption, fig)))
+
+
 def render_report(result, campaign=None) -> str:
     """The whole report as one HTML document (str). ``campaign`` may be None (no range profile)."""
     figs = build_figures(result, campaign)
@@ -577,6 +583,7 @@ def render_report(result, campaign=None) -> str:
         ("check", "Check target against theory",
          section_figs("check") or '<p class="note">No check target in this campaign.</p>'),
         ("range", "Range profile and gate", section_figs("range")),
+        ("imaging", "Images and scattering centres", _imaging_section(result)),
         ("uncertainty", "Uncertainty", uncertainty_statement(result)),
         ("provenance", "Settings and provenance", provenance(result, campaign)),
         ("safety", "RF-exposure caution", RF_CAUTION),

@@ -39,7 +39,7 @@ Config (TOML; every key, with its default)::
     [gate], [band]                              copied into the manifest as they are
     [output]   digits = 7; version = "1.0"; truth = true
     [[target]] name, role (background | reference | subject), model (empty | sphere | plate |
-               disk | cylinder | dihedral | trihedral | bare_cylinder | coated_cylinder),
+               disk | cylinder | dihedral | trihedral | bare_cylinder | coated_cylinder | points),
                repeats = 1, angles = {start, stop, step} or [list] or angle_deg = single angle
                (default: subjects the global [angles], others 0), range_m = chamber.range_m,
                files (pattern; default raw/<name>_{pol}[_{angle}][_{repeat}].s1p), background,
@@ -47,7 +47,9 @@ Config (TOML; every key, with its default)::
                model (radius_m, width_m, height_m, length_m, orientation, fold_m, face_m,
                roll_deg, edge_m, kind) for canonical shapes; for cylinders radius_m, length_m,
                thickness_m, eps_r, mu_r ([re, im], im <= 0 for loss), seam = {azimuth_deg,
-               width_m}, bolt = {azimuth_deg, radius_m}, mount_deg (see cloakrcs.cloak_model).
+               width_m}, bolt = {azimuth_deg, radius_m}, mount_deg (see cloakrcs.cloak_model);
+               scatterers = [{x_m, y_m, rcs_dbsm, phase_deg}] (isotropic points on the turntable,
+               cloakrcs.scatterers) for model points, or added to a cylinder model.
 
 A target whose model is a canonical shape gets ``shape`` and its keys in the manifest: as a
 subject it is a check target.  Files: angles written as ``%05.1f`` (000.0, 005.0, -30.0),
@@ -76,7 +78,7 @@ from .manifest import SHAPE_KEYS
 ROLES = ("background", "reference", "subject")
 SHAPE_MODELS = ("sphere", "plate", "disk", "cylinder", "dihedral", "trihedral")
 CYLINDER_MODELS = ("bare_cylinder", "coated_cylinder")
-MODELS = ("empty",) + SHAPE_MODELS + CYLINDER_MODELS
+MODELS = ("empty",) + SHAPE_MODELS + CYLINDER_MODELS + ("points",)
 POLARIZATIONS = ("HH", "VV", "HV", "VH")
 SECTIONS = {
     "campaign": {"name": "synthetic", "prototype": "", "date": None},
@@ -95,9 +97,11 @@ PASSTHROUGH = ("gate", "band")  # copied into the manifest
 TOP_KEYS = {"seed", "polarizations", "clutter", "target"} | set(SECTIONS) | set(PASSTHROUGH)
 _GENERAL_TARGET_KEYS = {"name", "role", "model", "repeats", "angles", "angle_deg", "range_m", "files", "background",
                         "baseline", "revision", "size_m", "gate_span_m", "calibrates", "notes"}
-TARGET_KEYS = _GENERAL_TARGET_KEYS | cloak_model.BARE_KEYS | cloak_model.COATED_KEYS | {
+TARGET_KEYS = _GENERAL_TARGET_KEYS | cloak_model.BARE_KEYS | cloak_model.COATED_KEYS | {"scatterers"} | {
     k for keys in SHAPE_KEYS.values() for k in keys}
-CYLINDER_KEYS = {"bare_cylinder": cloak_model.BARE_KEYS, "coated_cylinder": cloak_model.COATED_KEYS}
+CYLINDER_KEYS = {"bare_cylinder": cloak_model.BARE_KEYS | {"scatterers"},
+                 "coated_cylinder": cloak_model.COATED_KEYS | {"scatterers"},
+                 "points": {"scatterers", "mount_deg"}}  # scatterers: cloakrcs.scatterers
 _NORMALISED = "_normalised"
 
 
@@ -345,10 +349,20 @@ def model_amplitude(target: dict, frequency_hz, angle_deg, polarization) -> np.n
     model, params = target["model"], target.get("params", {})
     if model == "empty":
         return np.zeros((t.size, f.size), complex)
-    if model == "bare_cylinder":
-        return cloak_model.bare_cylinder_amplitude(params, f, t, polarization)
-    if model == "coated_cylinder":
-        return cloak_model.coated_cylinder_amplitude(params, f, t, polarization)
+    if model in CYLINDER_KEYS:  # point scatterers, alone or added to a cylinder
+        from . import scatterers
+
+        points = params.get("scatterers")
+        amp = np.zeros((t.size, f.size), complex) if points is None else scatterers.points_amplitude(
+            scatterers.parse_points(points), f, t, polarization, float(params.get("mount_deg", 0.0)))
+        if model == "points" and points is None:
+            raise InputError("model 'points' needs the key 'scatterers'")
+        body = {k: v for k, v in params.items() if k != "scatterers"}
+        if model == "bare_cylinder":
+            amp = amp + cloak_model.bare_cylinder_amplitude(body, f, t, polarization)
+        elif model == "coated_cylinder":
+            amp = amp + cloak_model.coated_cylinder_amplitude(body, f, t, polarization)
+        return amp
     from . import references
     return references.reference_amplitude({"shape": model, **params}, f, t, polarization)
 
@@ -360,6 +374,8 @@ def target_size_m(target: dict) -> float | None:
     model, p = target["model"], target.get("params", {})
     if model in CYLINDER_MODELS:
         return cloak_model.outer_size_m(model, p)
+    if model == "points":
+        return 2 * max(math.hypot(q["x_m"], q["y_m"]) for q in p["scatterers"]) or None
     if model in ("sphere", "disk"):
         return 2 * p["radius_m"]
     if model == "plate":

@@ -236,7 +236,7 @@ def _alembic_config():
     return cfg
 
 
-SCHEMA_REVISION = "i13a"  # newest migration in analysis/migrations/versions (a test keeps them equal)
+SCHEMA_REVISION = "i17a"  # newest migration in analysis/migrations/versions (a test keeps them equal)
 
 
 def _stored_revision(engine) -> str | None:
@@ -529,6 +529,50 @@ def _add_metrics(s: Session, run: S.ProcessingRun, crow: S.Campaign, result) -> 
     s.flush()
 
 
+_CENTRE_COLUMNS = ("target", "revision", "polarization", "rank", "down_range_m", "cross_range_m", "rcs_dbsm",
+                   "floor_limited", "down_range_resolution_m", "cross_range_resolution_m")
+
+
+def _add_centres(s: Session, run: S.ProcessingRun, result) -> None:
+    """Scattering centres of the run's images (cloakrcs.imaging.result_centres)."""
+    for c in getattr(result, "centres", None) or []:
+        cols = {k: c[k] for k in _CENTRE_COLUMNS}
+        s.add(S.ScatteringCentreRow(run_id=run.id, extra=_json({k: v for k, v in c.items() if k not in cols}),
+                                    **cols))
+    s.flush()
+
+
+def centres(url: str | None, prototype: str | None = None, all_runs: bool = False) -> list[dict]:
+    """Stored scattering centres with their run's prototype, campaign and measurement date.
+
+    By default only each campaign's latest run. Rows as ``cloakrcs.imaging.scattering_centres``
+    plus prototype, campaign, campaign_id, run_id, date.
+    """
+    with open_store(url)() as s:
+        _check_prototype(s, prototype)
+        q = (select(S.ScatteringCentreRow, S.ProcessingRun, S.Campaign, S.Prototype)
+             .join(S.ProcessingRun, S.ScatteringCentreRow.run_id == S.ProcessingRun.id)
+             .join(S.Campaign, S.ProcessingRun.campaign_id == S.Campaign.id)
+             .join(S.Prototype, S.Campaign.prototype_id == S.Prototype.id)
+             .order_by(S.ScatteringCentreRow.id))
+        if prototype is not None:
+            q = q.where(S.Prototype.name == prototype)
+        rows = s.execute(q).all()
+        latest = dict(s.execute(select(S.ProcessingRun.campaign_id, func.max(S.ProcessingRun.id))
+                                .group_by(S.ProcessingRun.campaign_id)).all())
+        tdate_of = {(cid, name): d for cid, name, d in
+                    s.execute(select(S.CampaignTarget.campaign_id, S.CampaignTarget.name, S.CampaignTarget.date))}
+        out = []
+        for c, run, camp, p in rows:
+            if not all_runs and latest.get(camp.id) != run.id:
+                continue
+            date = tdate_of.get((camp.id, c.target)) or camp.date
+            out.append({**{k: getattr(c, k) for k in _CENTRE_COLUMNS}, **c.extra, "prototype": p.name,
+                        "campaign": camp.name, "campaign_id": camp.id, "run_id": run.id,
+                        "date": date.isoformat() if date else None})
+    return out
+
+
 def record_run(url: str | None, campaign, result, before_commit=None, on_rollback=None) -> int:
     """Record a processing run (and its campaign, when new) in one transaction; returns the run id.
 
@@ -550,6 +594,7 @@ def record_run(url: str | None, campaign, result, before_commit=None, on_rollbac
                     run = _add_run(s, crow, campaign, result)
                     _add_results(s, run, result)
                     _add_metrics(s, run, crow, result)
+                    _add_centres(s, run, result)
                     run_id = run.id
                     if before_commit is not None:
                         commit.enter_context(interrupts_deferred())
@@ -989,6 +1034,9 @@ def load_result(url: str | None, run_id: int) -> dict:
         reds = s.scalars(select(S.ReductionRow).where(S.ReductionRow.run_id == run_id).order_by(S.ReductionRow.id)).all()
         mrows = s.scalars(select(S.MetricRow).where(S.MetricRow.run_id == run_id).order_by(S.MetricRow.id)).all()
         crows = s.scalars(select(S.CheckRow).where(S.CheckRow.run_id == run_id).order_by(S.CheckRow.id)).all()
+        srows = s.scalars(select(S.ScatteringCentreRow).where(S.ScatteringCentreRow.run_id == run_id)
+                          .order_by(S.ScatteringCentreRow.id)).all()
+        centre_rows = [{**{k: getattr(c, k) for k in _CENTRE_COLUMNS}, **c.extra} for c in srows]
         f = unpack_array(run.frequency_hz)
         targets: dict = {}
         for t in trows:
@@ -1015,7 +1063,7 @@ def load_result(url: str | None, run_id: int) -> dict:
             campaign=crow.name, prototype=proto.name, date=crow.date.isoformat() if crow.date else None,
             frequency_hz=f, valid_mask=unpack_array(run.valid_mask), band_mask=unpack_array(run.band_mask),
             targets=targets, checks=checks, floor=dict(run.floor), metrics=metrics, settings=dict(run.settings),
-            warnings=list(run.warnings), reductions=reductions)
+            warnings=list(run.warnings), reductions=reductions, centres=centre_rows)
         out = {"run_id": run.id, "campaign_id": crow.id, "campaign": crow.name, "prototype": proto.name,
                "date": result.date, "processed_at": _utc(run.processed_at).isoformat(),
                "software_version": run.software_version, "settings": result.settings,

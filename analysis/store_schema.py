@@ -205,3 +205,23 @@ class CheckRow(Base):
     passed: Mapped[bool] = mapped_column(Boolean, nullable=False)
     points: Mapped[int] = mapped_column(Integer, nullable=False)
     extra: Mapped[dict] = mapped_column(JSON, nullable=False)  # shape, error_curve_db
+
+
+class ScatteringCentreRow(Base):
+    """A scattering centre of a subject's image (cloakrcs.imaging): one row per centre, strongest first."""
+
+    __tablename__ = "scattering_centre"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    run_id: Mapped[int] = mapped_column(ForeignKey("processing_run.id", ondelete="CASCADE"), nullable=False,
+                                        index=True)
+    target: Mapped[str] = mapped_column(String(200), nullable=False)
+    revision: Mapped[str] = mapped_column(String(200), nullable=False)
+    polarization: Mapped[str] = mapped_column(String(2), nullable=False)
+    rank: Mapped[int] = mapped_column(Integer, nullable=False)
+    down_range_m: Mapped[float] = mapped_column(Float, nullable=False)
+    cross_range_m: Mapped[float] = mapped_column(Float, nullable=False)
+    rcs_dbsm: Mapped[float] = mapped_column(Float, nullable=False)
+    floor_limited: Mapped[bool] = mapped_column(Boolean, nullable=False)
+    down_range_resolution_m: Mapped[float] = mapped_column(Float, nullable=False)
+    cross_range_resolution_m: Mapped[float] = mapped_column(Float, nullable=False)
+    extra: Mapped[dict] = mapped_column(JSON, nullable=False)  # sector, band, method, window, image floor

@@ -646,6 +646,10 @@ def register(app, views: Views) -> None:
             return str(exc)
 
     # ---- safety
+    from .images import register_images  # the Images view (its own module)
+
+    register_images(app, views)
+
     @app.callback(Output("safe-out", "children"), Output("fig-safety", "figure"), Input("safe-p", "value"),
                   Input("safe-g", "value"), Input("safe-r", "value"), Input("safe-f", "value"),
                   Input("safe-pop", "value"), Input("safe-a", "value"))

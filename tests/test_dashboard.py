@@ -61,16 +61,18 @@ def _text(component) -> str:
     return json.dumps(json.loads(pio.json.to_json_plotly(component)), ensure_ascii=False)
 
 
-def test_layout_has_six_views_and_caution(sample):
+def test_layout_has_seven_views_and_caution(sample):
     src = MemorySource()
     src.add(*sample)
     app = create_app(src)
     page = app.layout()
     ids = _ids(page)
     for needed in ("run", "caution", "tabs", "upload", "fig-profile", "fig-rcs-freq", "fig-red-map", "fig-trend",
-                   "rev-table", "fig-safety", "gate-interval", "gate-cancel"):
+                   "rev-table", "fig-safety", "gate-interval", "gate-cancel", "fig-img", "fig-img-diff",
+                   "img-tracks"):
         assert needed in ids
-    assert [label for _k, label in VIEWS] == ["Campaign", "Range & gate", "RCS", "Reduction", "Revisions", "RF safety"]
+    assert [label for _k, label in VIEWS] == ["Campaign", "Range & gate", "RCS", "Reduction", "Revisions", "Images",
+                                             "RF safety"]
     assert "local regulations" in _text(page).lower()  # the caution sits outside the tabs: visible on every view
 
 
@@ -324,3 +326,29 @@ def test_serve_binds_loopback_by_default():
     assert (args.host, args.port) == ("127.0.0.1", 8050)
     args = build_parser().parse_args(["serve", "--host", "0.0.0.0", "--port", "9000", "--store", "x.sqlite"])
     assert (args.host, args.port, args.store) == ("0.0.0.0", 9000, "x.sqlite")
+
+
+def test_images_view_shows_image_difference_and_tracked_centres(sample):
+    # The view draws what cloakrcs.imaging computes: the peak of the shown image is the engine's peak
+    # pixel in dBsm, and the tracked-centre table lists the run's revisions (bare first).
+    import numpy as np
+
+    from cloakrcs import imaging
+
+    src = MemorySource()
+    run_id = src.add(*sample)
+    app = create_app(src)
+    iv = app.views.images
+    opts, default, pols, pol = iv.controls(run_id)
+    assert default == "r1" and pol == "VV" and {"bare", "r1", "r2", "r3"} <= {o["value"] for o in opts}
+    fig, base, diff, change, centres, tracks, status = iv.images(run_id, "r3", "VV", "-15:15", None, 30, "auto")
+    img = imaging.image_of_result(sample[1], "r3", "VV", (-15, 15))
+    heat = fig.data[0]
+    assert np.nanmax(np.asarray(heat.z, dtype=float)) == pytest.approx(float(np.max(img.rcs_dbsm)), abs=1e-6)
+    assert heat.zmax - heat.zmin == pytest.approx(30)
+    assert "Difference r3 - bare" in diff.layout.title.text and "Change" in change.layout.title.text
+    text = _text(tracks)
+    assert "bare (dBsm)" in text and "R3 (dBsm)" in text
+    assert "resolution" in status
+    bad = iv.images(run_id, "r3", "VV", "40:41", None, 30, "auto")
+    assert "needs at least 3" in bad[-1]

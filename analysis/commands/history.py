@@ -11,6 +11,8 @@ def register(sub) -> None:
     p.add_argument("--store", metavar="URL", help="results store (default: CLOAKRCS_STORE or the per-user SQLite file)")
     p.add_argument("--json", action="store_true", help="print the rows as a JSON list")
     p.add_argument("--all-runs", action="store_true", help="every processing run, not only each campaign's latest")
+    p.add_argument("--centres", action="store_true",
+                   help="also the scattering centres tracked across revisions (README, Imaging)")
     p.set_defaults(func=run)
 
 
@@ -65,6 +67,37 @@ def sector_text(sector_deg) -> str:
 def run(args) -> int:
     from .. import store
 
-    rows = store.history(store.resolve_url(args.store), args.prototype, all_runs=args.all_runs)
-    print(json.dumps(rows, indent=2) if args.json else format_history(rows))
+    url = store.resolve_url(args.store)
+    rows = store.history(url, args.prototype, all_runs=args.all_runs)
+    if not args.centres:
+        print(json.dumps(rows, indent=2) if args.json else format_history(rows))
+        return 0
+    from ..imaging import tracks_from_store
+
+    tracked = tracks_from_store(rows, store.centres(url, args.prototype))
+    if args.json:
+        print(json.dumps({"history": rows, "tracked_centres": tracked}, indent=2))
+    else:
+        print(format_history(rows) + "\n\n" + format_centres(tracked))
     return 0
+
+
+def format_centres(tracked: list[dict]) -> str:
+    """Tracked scattering centres: one table per prototype and polarization, then the changes in words."""
+    if not tracked:
+        return "no scattering centres in the store (runs processed before imaging existed have none)"
+    blocks = []
+    for t in tracked:
+        header = ["track", "down-range (m)", "cross-range (m)"] + [f"{r} (dBsm)" for r in t["revisions"]]
+        body = []
+        for tr in t["tracks"]:
+            cells = [str(tr["track"]), f"{tr['down_range_m']:+.3f}", f"{tr['cross_range_m']:+.3f}"]
+            for r in t["revisions"]:
+                v = tr["values"].get(r)
+                cells.append("-" if v is None else f"{v['rcs_dbsm']:.1f}" + (" (floor)" if v["floor_limited"] else ""))
+            body.append(cells)
+        blocks.append(f"scattering centres of {t['prototype']}, {t['polarization']} (CLEAN; '-': not found above "
+                      f"the stopping level; matched within one resolution cell)\n"
+                      + format_table(header, body, right=set(range(1, len(header))))
+                      + "".join(f"\n  {line}" for line in t["sentences"]))
+    return "\n\n".join(blocks)
