@@ -46,7 +46,7 @@ _SECTION_KEYS = {
 _TARGET_KEYS = {
     "name", "role", "files", "parameter", "background", "baseline", "revision", "range_m",
     "size_m", "gate_span_m", "angle_deg", "polarization", "calibrates", "shape", "specular_deg",
-    "notes", "date",
+    "notes", "date", "bistatic_deg",
 } | {k for keys in SHAPE_KEYS.values() for k in keys}
 
 
@@ -88,6 +88,8 @@ class TargetSpec:
     calibrates: tuple[str, ...] | None = None
     shape: dict[str, Any] | None = None
     specular_deg: float = 0.0
+    bistatic_deg: float = 0.0
+    arm: bool = False  # a receiver-arm target: its pattern has {bistatic} or it sets bistatic_deg
 
     @property
     def is_check(self) -> bool:
@@ -114,6 +116,8 @@ class Manifest:
     band_hz: tuple[float, float] | None
     targets: tuple[TargetSpec, ...]
     text: str = field(repr=False, default="")
+    arm_targets: tuple[TargetSpec, ...] = ()  # receiver-arm (bistatic) targets, processed apart
+
 
     @property
     def folder(self) -> Path:
@@ -358,10 +362,17 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
             else:
                 band_hz = (start * 1e9, stop * 1e9)
 
-    targets = _parse_targets(doc, text, check, chamber)
+    parsed = _parse_targets(doc, text, check, chamber)
+    targets = [t for t in parsed if not t.arm]
+    arm = tuple(t for t in parsed if t.arm)
     manifest = Manifest(path=path, name=name or "", prototype=prototype or "", date=date,
-                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text)
+                        chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text,
+                        arm_targets=arm)
     _check_relations(manifest, check)
+    if arm:
+        from .bistatic import check_arm_relations
+
+        check_arm_relations(manifest, check)
     return manifest, check.problems
 
 
@@ -426,6 +437,8 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
             calibrates=calibrates,
             shape=shape,
             specular_deg=check.number(t, "specular_deg", label, line, default=0.0),
+            bistatic_deg=check.number(t, "bistatic_deg", label, line, default=chamber.bistatic_deg),
+            arm="{bistatic}" in files or "bistatic_deg" in t,
         ))
     return targets
 

@@ -75,6 +75,10 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
             run_id = store.record_run(url, campaign, result)
         extra = {"run_id": run_id} if run_id is not None else None
         paths = outputs.write_outputs(result, out, extra)
+        if result.arm is not None:
+            from .bistatic import write_arm_outputs
+
+            paths.update(write_arm_outputs(result.arm, out))
         if html is not None:
             paths["report"] = out / "report.html"
             outputs.write_text(paths["report"], html)

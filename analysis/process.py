@@ -98,6 +98,7 @@ class ProcessingResult:
     settings: dict[str, Any]
     warnings: list[str]
     reductions: dict[tuple[str, str], xr.Dataset]  # (subject, polarization) -> reduction_db, bound
+    arm: Any = None  # cloakrcs.bistatic.ArmResult when the campaign has receiver-arm targets
 
     def rcs_table(self) -> pd.DataFrame:
         """rcs.csv rows: every subject, over the valid band (string columns categorical)."""
@@ -151,9 +152,12 @@ class ProcessingResult:
         return pd.DataFrame(cols, columns=REDUCTION_COLUMNS)
 
     def summary(self) -> dict[str, Any]:
-        return {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
-                "settings": self.settings, "checks": self.checks, "floor": self.floor,
-                "metrics": self.metrics, "warnings": self.warnings}
+        out = {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
+               "settings": self.settings, "checks": self.checks, "floor": self.floor,
+               "metrics": self.metrics, "warnings": self.warnings}
+        if self.arm is not None:
+            out["bistatic"] = self.arm.summary
+        return out
 
 
 POLARIZATION_ORDER = ["HH", "VV", "HV", "VH"]
@@ -320,11 +324,18 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         "files": {_rel(p, m.folder): h for p, h in sorted(hashes.items())},
         "process_settings": settings.as_dict(),
     }
-    return ProcessingResult(
+    result = ProcessingResult(
         campaign=m.name, prototype=m.prototype, date=m.date.isoformat() if m.date else None,
         frequency_hz=f, valid_mask=valid, band_mask=band_mask, targets=targets, checks=checks,
         floor=floor_summary, metrics=metric_rows, settings=settings_out, warnings=warnings,
         reductions=reductions)
+    if campaign.arm:  # receiver-arm (bistatic) targets: README, Bistatic and forward scattering
+        from . import bistatic
+
+        result.arm = bistatic.process_arm(campaign, settings, result)
+        result.warnings.extend(result.arm.warnings)
+        tick("bistatic")
+    return result
 
 
 def _rel(path: str, folder) -> str:
