@@ -428,11 +428,22 @@ def im_linear_uncertainty(c, total, stats: dict, n_sweeps: int, frequency_hz, ce
 
 
 def budget(components: list[dict], coverage_k: float) -> dict:
-    """A GUM budget: components {component, type, u_db, samples, note}, combined (root sum of squares of
-    u_db, uncorrelated components), coverage_k and expanded = k x combined (JCGM 100:2008)."""
+    """A GUM budget: components {component, type, u_db, samples, dof, note}, combined (root sum of squares
+    of u_db, uncorrelated components), coverage_k and expanded = k x combined (JCGM 100:2008).
+
+    Type A components estimated from few repeats have few degrees of freedom: the effective degrees
+    of freedom follow Welch-Satterthwaite, nu_eff = u_c^4 / sum(u_i^4 / nu_i), and the coverage factor
+    is Student's t at the coverage probability that ``coverage_k`` gives for a normal distribution
+    (k = 2: 95.45 %; JCGM 100:2008, G.4).  ``nominal_coverage_k`` keeps the requested k."""
+    from scipy import stats
+
     combined = float(math.sqrt(sum(c["u_db"] ** 2 for c in components)))
-    return {"components": components, "combined": combined, "coverage_k": coverage_k,
-            "expanded": coverage_k * combined}
+    den = sum(c["u_db"] ** 4 / c["dof"] for c in components if c.get("dof") and c["u_db"] > 0)
+    nu = combined ** 4 / den if den > 0 else math.inf
+    p = 2 * stats.norm.cdf(coverage_k) - 1
+    k = float(stats.t.ppf((1 + p) / 2, nu)) if math.isfinite(nu) else float(coverage_k)
+    return {"components": components, "combined": combined, "coverage_k": k, "expanded": k * combined,
+            "effective_dof": nu if math.isfinite(nu) else None, "nominal_coverage_k": coverage_k}
 
 
 def arc_integrated(sigma, bistatic_deg) -> np.ndarray:
@@ -676,8 +687,11 @@ def _ref_components(x, c, ib, pol, ip, sel, band, f, cell_hz, factors, ref) -> t
     return im_linear_uncertainty(q, tot, rst, n_ref, f[band], cell_hz)
 
 
-def _component(name, kind, u, samples, note) -> dict:
-    return {"component": name, "type": kind, "u_db": float(u), "samples": int(samples), "note": note}
+def _component(name, kind, u, samples, note, dof=None) -> dict:
+    """A budget row; dof defaults to samples - 1 for a type A component (None: infinite)."""
+    if dof is None and kind == "A":
+        dof = max(int(samples) - 1, 1)
+    return {"component": name, "type": kind, "u_db": float(u), "samples": int(samples), "dof": dof, "note": note}
 
 
 def _summary(campaign, settings, mono, targets, gated, sens, factors, ref_spec, ref_info, f, valid, band, cell_hz,
@@ -777,7 +791,7 @@ def _summary(campaign, settings, mono, targets, gated, sens, factors, ref_spec, 
                                     gated[ref_spec.name]["n"],
                                     "through the calibration factor at 180 deg; the sphere's Mie theory is exact "
                                     "(radius tolerance not included; correlation through a shared background "
-                                    "neglected)"))
+                                    "neglected)", dof=st["repeats"] - 1))
             out["extinction"].append({
                 "target": name, "baseline": t.baseline, "revision": t.revision, "polarization": pol,
                 "band_mean_m2": P / ext.size, "band_mean_dbsm": 10 * math.log10(P / ext.size) if P > 0 else None,
