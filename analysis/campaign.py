@@ -31,6 +31,7 @@ FIELD_REGEX = {
     "pol": r"(?P<pol>[HhVv][HhVv])",
     "angle": r"(?P<angle>[+-]?(?:\d+(?:\.\d*)?|\.\d+))",
     "repeat": r"(?P<repeat>\d+)",
+    "bistatic": r"(?P<bistatic>[+-]?(?:\d+(?:\.\d*)?|\.\d+))",
 }
 BISTATIC_WARN_DEG = 10.0
 MAX_REPEAT = 999_999  # largest {repeat} number
@@ -88,6 +89,7 @@ class SweepFile:
     polarization: str
     angle_deg: float
     repeat: int
+    bistatic_deg: float = 0.0
 
 
 @dataclass
@@ -146,6 +148,7 @@ class Campaign:
     cubes: dict[str, TargetCube]
     frequency_hz: np.ndarray
     warnings: list[str] = field(default_factory=list)
+    arm: dict = field(default_factory=dict)  # receiver-arm targets: name -> cloakrcs.bistatic.ArmCube
 
     def cube(self, name: str) -> TargetCube:
         return self.cubes[name]
@@ -154,6 +157,8 @@ class Campaign:
     def file_hashes(self) -> dict[str, str]:
         out: dict[str, str] = {}
         for cube in self.cubes.values():
+            out.update(cube.hashes)
+        for cube in self.arm.values():
             out.update(cube.hashes)
         return out
 
@@ -198,7 +203,7 @@ def find_sweep_files(manifest: Manifest, spec: TargetSpec, root: Path | None = N
     unknown = pattern_fields(pattern) - set(FIELD_REGEX)
     if unknown:
         raise InputError(f"target {spec.name}: unknown field {{{sorted(unknown)[0]}}} in files pattern "
-                         f"(known: {{pol}}, {{angle}}, {{repeat}})", manifest.path, spec.line)
+                         f"(known: {{pol}}, {{angle}}, {{repeat}}, {{bistatic}})", manifest.path, spec.line)
     folder = manifest.folder
     glob_pattern = "".join(
         "*" if re.fullmatch(r"\{[a-z]+\}", p) else glob.escape(p) for p in re.split(r"(\{[a-z]+\})", pattern))
@@ -222,19 +227,21 @@ def find_sweep_files(manifest: Manifest, spec: TargetSpec, root: Path | None = N
                              f"{MAX_ANGLE_DEG:g}] deg", hit)
         repeat = int(groups["repeat"]) if "repeat" in groups else 0
         check_sweep_file(Path(hit))
-        found.append(SweepFile(Path(hit), pol, angle, repeat))
+        bistatic = float(groups["bistatic"]) if "bistatic" in groups else spec.bistatic_deg
+        found.append(SweepFile(Path(hit), pol, angle, repeat, bistatic))
     if not found:
         raise InputError(f"target {spec.name}: files pattern '{spec.files}' matches no file", manifest.path, spec.line)
     seen: dict[tuple, Path] = {}
     for sf in found:
-        key = (sf.polarization, float(wrap_angle_deg(sf.angle_deg)), sf.repeat)
+        key = (sf.polarization, float(wrap_angle_deg(sf.angle_deg)), sf.repeat, sf.bistatic_deg)
         if key in seen:
             other = seen[key]
             if sf.angle_deg != _angle_of(found, other):
                 raise InputError(f"target {spec.name}: angles coincide once wrapped to (-180, 180]: "
                                  f"{other.name} and {sf.path.name}", manifest.path, spec.line)
             what = "add a {repeat} field to the pattern" if "repeat" not in pattern_fields(pattern) else "duplicate repeat"
-            raise InputError(f"target {spec.name}: two files for {sf.polarization} at {sf.angle_deg:g} deg "
+            at = f" bistatic {sf.bistatic_deg:g} deg" if spec.arm else ""
+            raise InputError(f"target {spec.name}: two files for {sf.polarization} at {sf.angle_deg:g} deg{at} "
                              f"({other.name}, {sf.path.name}): {what}", manifest.path, spec.line)
         seen[key] = sf.path
     return found
@@ -713,6 +720,10 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
 
         known = {str(p) for p in problems}
         problems.extend(p for p in settings_problems(campaign) if str(p) not in known)
+    if manifest.arm_targets:
+        from . import bistatic
+
+        campaign.arm = bistatic.inspect_arm(manifest, freq, workers, root, problems.append, warnings.append)
     return campaign, problems, warnings
 
 
@@ -767,7 +778,12 @@ def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFOR
     warnings = [w for cube in cubes.values() for w in cube.warnings]
     check_campaign(manifest, cubes, fail, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values
-    return Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
+    campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
+    if manifest.arm_targets:
+        from . import bistatic
+
+        campaign.arm = bistatic.load_arm(manifest, freq, workers, root, warnings.append)
+    return campaign
 
 
 def campaign_summary(campaign: Campaign) -> dict:

@@ -63,7 +63,7 @@ _SECTION_KEYS = {
 _TARGET_KEYS = {
     "name", "role", "files", "parameter", "background", "baseline", "revision", "range_m",
     "size_m", "gate_span_m", "angle_deg", "polarization", "calibrates", "shape", "specular_deg",
-    "notes", "date",
+    "notes", "date", "bistatic_deg",
 } | {k for keys in SHAPE_KEYS.values() for k in keys}
 
 
@@ -105,6 +105,8 @@ class TargetSpec:
     calibrates: tuple[str, ...] | None = None
     shape: dict[str, Any] | None = None
     specular_deg: float = 0.0
+    bistatic_deg: float = 0.0
+    arm: bool = False  # a receiver-arm target: its pattern has {bistatic} or it sets bistatic_deg
 
     @property
     def is_check(self) -> bool:
@@ -132,6 +134,8 @@ class Manifest:
     targets: tuple[TargetSpec, ...]
     text: str = field(repr=False, default="")
     band_line: int | None = None  # line of the [band] table, for messages about it
+    arm_targets: tuple[TargetSpec, ...] = ()  # receiver-arm (bistatic) targets, processed apart
+
 
     @property
     def folder(self) -> Path:
@@ -432,11 +436,17 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
             else:
                 band_hz = (start * 1e9, stop * 1e9)
 
-    targets = _parse_targets(doc, text, check, chamber)
+    parsed = _parse_targets(doc, text, check, chamber)
+    targets = [t for t in parsed if not t.arm]
+    arm = tuple(t for t in parsed if t.arm)
     manifest = Manifest(path=path, name=name or "", prototype=prototype or "", date=date,
                         chamber=chamber, gate=gate, band_hz=band_hz, targets=tuple(targets), text=text,
-                        band_line=bline if band_t else None)
+                        band_line=bline if band_t else None, arm_targets=arm)
     _check_relations(manifest, check)
+    if arm:
+        from .bistatic import check_arm_relations
+
+        check_arm_relations(manifest, check)
     return manifest, check.problems
 
 
@@ -506,6 +516,8 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
             calibrates=calibrates,
             shape=shape,
             specular_deg=check.number(t, "specular_deg", label, line, default=0.0),
+            bistatic_deg=check.number(t, "bistatic_deg", label, line, default=chamber.bistatic_deg),
+            arm="{bistatic}" in files or "bistatic_deg" in t,
         ))
     return targets
 

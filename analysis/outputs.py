@@ -27,7 +27,7 @@ import pandas as pd
 from .errors import InputError
 from .process import ProcessingResult
 
-PRODUCTS = ("rcs.csv", "reduction.csv", "summary.json", "report.html")  # the files a run owns in its folder
+PRODUCTS = ("rcs.csv", "reduction.csv", "summary.json", "report.html", "bistatic.csv", "extinction.csv")  # the files a run owns in its folder
 STAGING_PREFIX = ".cloakrcs-staging-"
 LOCK_NAME = ".cloakrcs.lock"
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")  # cells a spreadsheet would evaluate (OWASP, CSV injection)

@@ -133,6 +133,10 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
         notes: list = []
         try:
             outputs.write_outputs(result, folder.staging)
+            if result.arm is not None:  # receiver-arm (bistatic) tables
+                from .bistatic import write_arm_outputs
+
+                write_arm_outputs(result.arm, folder.staging)
             if html is not None:
                 outputs.write_text(folder.staging / "report.html", html)
             tick("outputs")
@@ -152,6 +156,7 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
             folder.close(keep_staging=keep)
     finally:
         bar.close()
-    names = {"rcs.csv": "rcs", "reduction.csv": "reduction", "summary.json": "summary", "report.html": "report"}
+    names = {"rcs.csv": "rcs", "reduction.csv": "reduction", "summary.json": "summary", "report.html": "report",
+             "bistatic.csv": "bistatic", "extinction.csv": "extinction"}
     paths = {names[n]: p for n, p in placed.items()}
     return Outcome(result=result, out_dir=folder.out, paths=paths, run_id=run_id, store_url=url, notes=notes)

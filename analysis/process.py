@@ -128,6 +128,7 @@ class ProcessingResult:
     warnings: list[str]
     reductions: dict[tuple[str, str], xr.Dataset]  # (subject, polarization) -> reduction_db, bound
     centres: list[dict] = field(default_factory=list)  # scattering centres per subject (cloakrcs.imaging)
+    arm: Any = None  # cloakrcs.bistatic.ArmResult when the campaign has receiver-arm targets
 
     def rcs_table(self) -> pd.DataFrame:
         """rcs.csv rows: every subject, over the valid band (string columns categorical)."""
@@ -187,10 +188,13 @@ class ProcessingResult:
 
     def summary(self) -> dict[str, Any]:
         failed = [f"{c['target']} {c['polarization']}" for c in self.failed_checks]
-        return {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
-                "check_failed": bool(failed), "failed_checks": failed,
-                "settings": self.settings, "checks": self.checks, "floor": self.floor,
-                "metrics": self.metrics, "warnings": self.warnings, "scattering_centres": self.centres}
+        out = {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
+               "check_failed": bool(failed), "failed_checks": failed,
+               "settings": self.settings, "checks": self.checks, "floor": self.floor,
+               "metrics": self.metrics, "warnings": self.warnings, "scattering_centres": self.centres}
+        if self.arm is not None:
+            out["bistatic"] = self.arm.summary
+        return out
 
 
 def check_failure_text(c: dict) -> str:
@@ -456,6 +460,13 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
     result.centres = imaging.result_centres(result)
     tick("scattering centres")
+
+    if campaign.arm:  # receiver-arm (bistatic) targets: README, Bistatic and forward scattering
+        from . import bistatic
+
+        result.arm = bistatic.process_arm(campaign, settings, result)
+        result.warnings.extend(result.arm.warnings)
+        tick("bistatic")
     return result
 
 

@@ -588,6 +588,12 @@ def render_report(result, campaign=None) -> str:
         ("provenance", "Settings and provenance", provenance(result, campaign)),
         ("safety", "RF-exposure caution", RF_CAUTION),
     ]
+    arm = getattr(result, "arm", None)
+    arm_summary = arm.summary if arm is not None else s.get("bistatic")
+    if arm_summary:  # receiver-arm targets: README, Bistatic and forward scattering
+        from .bistatic_report import report_section
+
+        sections.insert(-3, ("bistatic", "Bistatic and forward scattering", report_section(arm_summary, _figure_html)))
     nav = "".join(f'<li><a href="#{sid}">{_esc(h)}</a></li>' for sid, h, _ in sections)
     body = "".join(f'<section id="{sid}"><h2>{_esc(h)}</h2>{content}</section>' for sid, h, content in sections)
     return (

@@ -94,9 +94,9 @@ SECTIONS = {
     "output": {"digits": 7, "version": "1.0", "truth": True},
 }
 PASSTHROUGH = ("gate", "band")  # copied into the manifest
-TOP_KEYS = {"seed", "polarizations", "clutter", "target"} | set(SECTIONS) | set(PASSTHROUGH)
+TOP_KEYS = {"seed", "polarizations", "clutter", "target", "arm"} | set(SECTIONS) | set(PASSTHROUGH)
 _GENERAL_TARGET_KEYS = {"name", "role", "model", "repeats", "angles", "angle_deg", "range_m", "files", "background",
-                        "baseline", "revision", "size_m", "gate_span_m", "calibrates", "notes"}
+                        "baseline", "revision", "size_m", "gate_span_m", "calibrates", "notes", "arm", "bistatic"}
 TARGET_KEYS = _GENERAL_TARGET_KEYS | cloak_model.BARE_KEYS | cloak_model.COATED_KEYS | {"scatterers"} | {
     k for keys in SHAPE_KEYS.values() for k in keys}
 CYLINDER_KEYS = {"bare_cylinder": cloak_model.BARE_KEYS | {"scatterers"},
@@ -190,6 +190,19 @@ def _normalise_target(t, i: int, cfg: dict, path) -> dict:
     else:
         out["angles"] = list(cfg["angles"]) if t["role"] == "subject" else [0.0]
     out["range_m"] = _num(t.get("range_m", cfg["chamber"]["range_m"]), f"{label}: range_m", path, positive=True)
+    if "arm" in t and not isinstance(t["arm"], bool):
+        raise InputError(f"{label}: 'arm' must be true or false", path)
+    out["arm"] = bool(t.get("arm", False))
+    if out["arm"]:
+        from . import simulate_arm
+        if model not in simulate_arm.ARM_MODELS:
+            raise InputError(f"{label}: an arm target's model must be one of {', '.join(simulate_arm.ARM_MODELS)}", path)
+        out["bistatic"] = (simulate_arm.bistatic_list(t["bistatic"], f"{label}: bistatic", path, _angle_list)
+                           if "bistatic" in t else list(cfg["arm"]["bistatic"]))
+        if "angles" not in t and "angle_deg" not in t:
+            out["angles"] = [0.0]
+    elif "bistatic" in t:
+        raise InputError(f"{label}: 'bistatic' belongs to arm targets (arm = true)", path)
     for key in ("size_m", "gate_span_m"):
         if key in t:
             out[key] = _num(t[key], f"{label}: {key}", path, positive=True)
@@ -201,21 +214,26 @@ def _normalise_target(t, i: int, cfg: dict, path) -> dict:
                                                             for p in t["calibrates"]):
             raise InputError(f"{label}: 'calibrates' must be a list of HH, VV, HV, VH", path)
     if "files" not in t:
-        ext = ".s1p" if cfg["sweep"]["ports"] == 1 else ".s2p"
-        parts = [f"raw/{_file_stem(t['name'])}", "_{pol}"]
+        ext = ".s1p" if cfg["sweep"]["ports"] == 1 and not out["arm"] else ".s2p"
+        parts = [f"raw/{_file_stem(t['name'])}", "_{pol}"] + (["_b{bistatic}"] if out["arm"] else [])
         if len(out["angles"]) > 1:
             parts.append("_{angle}")
         if out["repeats"] > 1:
             parts.append("_{repeat}")
         out["files"] = "".join(parts) + ext
     fields = set(re.findall(r"\{([a-z]+)\}", out["files"]))
-    if fields - {"pol", "angle", "repeat"}:
+    if fields - {"pol", "angle", "repeat", "bistatic"} or ("bistatic" in fields and not out["arm"]):
         raise InputError(f"{label}: unknown field in files pattern {out['files']!r}", path)
+    if out["arm"] and len(out["bistatic"]) > 1 and "bistatic" not in fields:
+        raise InputError(f"{label}: files pattern {out['files']!r} lacks the {{bistatic}} field", path)
     if len(out["angles"]) > 1 and "angle" not in fields or out["repeats"] > 1 and "repeat" not in fields \
             or len(cfg["polarizations"]) > 1 and "pol" not in fields:
         raise InputError(f"{label}: files pattern {out['files']!r} lacks a field that tells sweeps apart", path)
     # evaluate the model once on a tiny grid: bad parameters fail here, naming the file
     try:
+        if out["arm"]:
+            from . import simulate_arm
+            simulate_arm.arm_amplitude(out, np.array([cfg["sweep"]["start_ghz"] * 1e9]), out["bistatic"][:1], "VV")
         model_amplitude(out, np.array([cfg["sweep"]["start_ghz"] * 1e9]), np.array(out["angles"][:1]), "VV")
     except InputError as exc:
         raise InputError(f"{label}: {exc.message}", path) from None
@@ -285,6 +303,11 @@ def normalise_config(raw: dict, path=None) -> dict:
         raise InputError("polarizations must be a non-empty list of HH, VV, HV, VH", path)
     cfg["polarizations"] = list(dict.fromkeys(p.upper() for p in pols))
     cfg["angles"] = _angle_list(cfg["angles"], "[angles]", path)
+    if "arm" in raw:
+        from . import simulate_arm
+        cfg["arm"] = simulate_arm.normalise_arm(raw["arm"], path, _angle_list)
+    else:
+        cfg["arm"] = None
     clutter = raw.get("clutter", [])
     if not isinstance(clutter, list):
         raise InputError("clutter must be an array of tables [[clutter]] with range_m, level_dbsm", path)
@@ -306,12 +329,18 @@ def normalise_config(raw: dict, path=None) -> dict:
     if len(set(names)) != len(names):
         raise InputError("duplicate target name", path)
     by_name = {t["name"]: t for t in cfg["target"]}
-    backgrounds = [t["name"] for t in cfg["target"] if t["role"] == "background"]
+    backgrounds = [t["name"] for t in cfg["target"] if t["role"] == "background" and not t["arm"]]
+    arm_backgrounds = [t["name"] for t in cfg["target"] if t["role"] == "background" and t["arm"]]
     if not backgrounds:
         raise InputError("no background target (role = \"background\")", path)
+    if any(t["arm"] for t in cfg["target"]) and not arm_backgrounds:
+        raise InputError("arm targets need an arm background (role = \"background\", arm = true)", path)
     for t in cfg["target"]:
         if t["role"] != "background":
-            t.setdefault("background", backgrounds[0])
+            t.setdefault("background", (arm_backgrounds if t["arm"] else backgrounds)[0])
+            if by_name.get(t["background"], {}).get("arm", False) != t["arm"]:
+                raise InputError(f"target {t['name']}: background {t['background']!r} is not on the same "
+                                 f"{'receiver arm' if t['arm'] else 'monostatic antenna'}", path)
             if by_name.get(t["background"], {}).get("role") != "background":
                 raise InputError(f"target {t['name']}: background {t['background']!r} is not a background target", path)
         if "baseline" in t and by_name.get(t["baseline"], {}).get("role") != "subject":
@@ -468,6 +497,8 @@ def planning_rows(cfg: dict, frequency_hz, amplitudes: dict) -> list[PlanRow]:
     n_bg = {t["name"]: t["repeats"] * len(t["angles"]) for t in cfg["target"] if t["role"] == "background"}
     rows = []
     for t in cfg["target"]:
+        if t["arm"]:
+            continue  # receiver-arm targets: see cloakrcs.simulate_arm
         R = t["range_m"]
         span = _gate_span(cfg, t)
         noise_point = 10 ** (cfg["noise"]["level_db"] / 10) * R ** 4  # dBsm equivalent, one point
@@ -548,7 +579,9 @@ def manifest_text(cfg: dict) -> str:
     param = "S11" if cfg["sweep"]["ports"] == 1 else "S21"
     for t in cfg["target"]:
         lines += ["", "[[target]]", f"name = {_toml_value(t['name'])}", f"role = {_toml_value(t['role'])}",
-                  f"files = {_toml_value(t['files'])}", f"parameter = {_toml_value(param)}"]
+                  f"files = {_toml_value(t['files'])}", f"parameter = {_toml_value('S21' if t['arm'] else param)}"]
+        if t["arm"] and (len(t["bistatic"]) == 1 or "{bistatic}" not in t["files"]):
+            lines.append(f"bistatic_deg = {_toml_value(float(t['bistatic'][0]))}")
         if len(t["angles"]) == 1:
             lines.append(f"angle_deg = {_toml_value(float(t['angles'][0]))}")
         if len(cfg["polarizations"]) == 1:
@@ -597,7 +630,7 @@ def truth_metrics(cfg: dict, frequency_hz, amplitudes: dict) -> dict:
            "subjects": {}}
     by_name = {t["name"]: t for t in cfg["target"]}
     for t in cfg["target"]:
-        if t["role"] != "subject" or "baseline" not in t:
+        if t["role"] != "subject" or "baseline" not in t or t["arm"]:
             continue
         base = by_name[t["baseline"]]
         common = [a for a in t["angles"] if a in base["angles"]]
@@ -626,7 +659,7 @@ def write_truth(cfg: dict, frequency_hz, amplitudes: dict, folder: Path) -> list
     folder.mkdir(parents=True, exist_ok=True)
     f_hz = np.rint(np.asarray(frequency_hz, float)).astype(np.int64)
     by_name = {t["name"]: t for t in cfg["target"]}
-    subjects = [t for t in cfg["target"] if t["role"] == "subject"]
+    subjects = [t for t in cfg["target"] if t["role"] == "subject" and not t["arm"]]
 
     def rows(name, pol, angles, values):
         na, nf = values.shape
@@ -676,6 +709,7 @@ class SimulationResult:
     planning: list[PlanRow] = field(default_factory=list)
     planning_text: str = ""
     metrics: dict = field(default_factory=dict)
+    arm_amplitudes: dict = field(default_factory=dict)  # arm target -> polarization -> complex (n_beta, nf), m
 
 
 def simulate_campaign(config: dict, out_dir) -> SimulationResult:
@@ -704,8 +738,20 @@ def simulate_campaign(config: dict, out_dir) -> SimulationResult:
     pols = cfg["polarizations"]
     out_cfg = cfg["output"]
     amplitudes: dict = {}
+    arm_amplitudes: dict = {}
     files: list[Path] = []
     for t in cfg["target"]:
+        if t["arm"]:
+            from . import simulate_arm
+            cp = cfg["coupling"]
+            coupling = 10 ** (cp["level_db"] / 20) * np.exp(-2j * k * (cp["range_m"] + offset))
+            paths, arm_amplitudes[t["name"]] = simulate_arm.simulate_arm_target(
+                cfg, t, f, rng, G, static - coupling, support, change, noise_rms, out, format_angle,
+                write_touchstone,
+                [f"synthetic sweep (cloakrcs simulate, seed {cfg['seed']}): invented scenario, not a measurement",
+                 f"target {t['name']} ({t['role']}, model {t['model']}, receiver arm)"])
+            files += paths
+            continue
         ang = np.asarray(t["angles"], float)
         amps = {p: model_amplitude(t, f, ang, p) for p in pols}
         amplitudes[t["name"]] = amps
@@ -745,8 +791,11 @@ def simulate_campaign(config: dict, out_dir) -> SimulationResult:
     manifest_path = out / "manifest.toml"
     manifest_path.write_text(manifest_text(cfg), encoding="utf-8", newline="\n")
     truth_files = write_truth(cfg, f, amplitudes, out / "truth") if out_cfg["truth"] else []
+    if arm_amplitudes and out_cfg["truth"]:
+        from . import simulate_arm
+        truth_files += simulate_arm.write_arm_truth(cfg, f, arm_amplitudes, out / "truth")
     rows = planning_rows(cfg, f, amplitudes)
     return SimulationResult(out_dir=out, manifest_path=manifest_path, files=files, truth_files=truth_files,
                             frequency_hz=f, amplitudes=amplitudes, angles={t["name"]: list(t["angles"]) for t in cfg["target"]},
                             planning=rows, planning_text=format_planning(rows, cfg, f),
-                            metrics=truth_metrics(cfg, f, amplitudes))
+                            metrics=truth_metrics(cfg, f, amplitudes), arm_amplitudes=arm_amplitudes)

@@ -483,7 +483,9 @@ def _add_run(s: Session, crow: S.Campaign, campaign, result) -> S.ProcessingRun:
     run = S.ProcessingRun(
         campaign_id=crow.id, processed_at=dt.datetime.now(dt.timezone.utc),
         software_version=str(result.settings.get("software_version", "")),
-        process_settings=_json(result.settings.get("process_settings", {})), settings=_json(result.settings),
+        process_settings=_json(result.settings.get("process_settings", {})),
+        settings=_json(result.settings if getattr(result, "arm", None) is None
+                       else {**result.settings, "bistatic": result.arm.summary}),
         manifest_text=campaign.manifest.text, floor=_json(result.floor), warnings=list(result.warnings),
         frequency_hz=pack_array(result.frequency_hz), valid_mask=pack_array(result.valid_mask),
         band_mask=pack_array(result.band_mask))
