@@ -649,6 +649,9 @@ def register(app, views: Views) -> None:
     from .images import register_images  # the Images view (its own module)
 
     register_images(app, views)
+    from .bistatic_view import register_bistatic  # the Bistatic view (its own module)
+
+    views.bistatic = register_bistatic(app, views)
 
     @app.callback(Output("safe-out", "children"), Output("fig-safety", "figure"), Input("safe-p", "value"),
                   Input("safe-g", "value"), Input("safe-r", "value"), Input("safe-f", "value"),

@@ -1,4 +1,4 @@
-"""The page: a header with the run selector and the upload, the RF caution on every view, seven views."""
+"""The page: a header with the run selector and the upload, the RF caution on every view, eight views."""
 
 from __future__ import annotations
 
@@ -9,7 +9,8 @@ from ..safety import CAUTION
 from .upload import MAX_COMPRESSED_BYTES
 
 VIEWS = (("campaign", "Campaign"), ("gate", "Range & gate"), ("rcs", "RCS"), ("reduction", "Reduction"),
-         ("revisions", "Revisions"), ("images", "Images"), ("safety", "RF safety"))
+         ("revisions", "Revisions"), ("images", "Images"), ("bistatic", "Bistatic"),
+         ("safety", "RF safety"))
 WINDOWS = ("kaiser", "hann", "rect")
 TREND_METRICS = (("band_reduction_db", "band-averaged reduction (dB)"), ("bandwidth_hz", "bandwidth above threshold (MHz)"),
                  ("worst_angle_reduction_db", "worst-angle reduction (dB)"), ("check_error_db", "check-target max error (dB)"))
@@ -172,9 +173,10 @@ def safety_view() -> html.Div:
 
 
 def build_layout(runs_options, run_value) -> html.Div:
+    from .bistatic_view import bistatic_view
     from .images import images_view
 
-    builders = {"images": images_view, "campaign": campaign_view, "gate": gate_view, "rcs": rcs_view, "reduction": reduction_view,
+    builders = {"images": images_view, "bistatic": bistatic_view, "campaign": campaign_view, "gate": gate_view, "rcs": rcs_view, "reduction": reduction_view,
                 "revisions": revisions_view, "safety": safety_view}
     return html.Div(className="page", children=[
         header(runs_options, run_value),

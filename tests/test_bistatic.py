@@ -273,3 +273,43 @@ def test_arm_reference_must_be_a_sphere(tmp_path):
     manifest.write_text(text)
     _, problems = parse_manifest(manifest, collect=True)
     assert any("must be a sphere" in str(p) for p in problems)
+
+
+def test_dashboard_bistatic_view_draws_the_arm_results(arm_run):
+    # The view draws what cloakrcs.bistatic computed: the polar pattern's radii are the summary's
+    # band-averaged bistatic RCS, the extinction curve is the optical-theorem extinction (m^2) of
+    # the summary, and the status names the bistatic angles shown. A run without an arm says so.
+    from cloakrcs.campaign import load_campaign
+    from cloakrcs.dashboard.app import create_app
+    from cloakrcs.dashboard.data import MemorySource
+
+    sim, outcome = arm_run
+    src = MemorySource()
+    run_id = src.add(load_campaign(sim.manifest_path), outcome.result)
+    bv = create_app(src).views.bistatic
+    pols, pol = bv.controls(run_id)
+    assert pol in {p["value"] for p in pols}
+    polar, red, ext, status, table = bv.figures(run_id, pol)
+    summary = outcome.result.arm.summary
+    pats = [p for p in summary["patterns"] if p["polarization"] == pol]
+    assert [list(tr.r) for tr in polar.data] == [p["band_rcs_dbsm"] for p in pats]
+    assert "bistatic angles shown" in status and "180" in status
+    curves = [tr for tr in ext.data if tr.mode == "lines"]
+    rows = [e for e in summary["extinction"] if e["polarization"] == pol]
+    assert [list(tr.y) for tr in curves] == [e["extinction_m2"] for e in rows]
+    assert table is not None or not summary["extinction_reduction"]
+
+
+def test_dashboard_bistatic_view_without_an_arm(tiny_campaign):
+    from cloakrcs.campaign import load_campaign
+    from cloakrcs.dashboard.app import create_app
+    from cloakrcs.dashboard.data import MemorySource
+    from cloakrcs.process import process_campaign
+
+    campaign = load_campaign(tiny_campaign)
+    src = MemorySource()
+    run_id = src.add(campaign, process_campaign(campaign))
+    bv = create_app(src).views.bistatic
+    assert bv.controls(run_id) == ([], None)
+    *_figs, status, table = bv.figures(run_id, None)
+    assert "no receiver-arm" in status and table is None

@@ -61,7 +61,7 @@ def _text(component) -> str:
     return json.dumps(json.loads(pio.json.to_json_plotly(component)), ensure_ascii=False)
 
 
-def test_layout_has_seven_views_and_caution(sample):
+def test_layout_has_eight_views_and_caution(sample):
     src = MemorySource()
     src.add(*sample)
     app = create_app(src)
@@ -69,10 +69,10 @@ def test_layout_has_seven_views_and_caution(sample):
     ids = _ids(page)
     for needed in ("run", "caution", "tabs", "upload", "fig-profile", "fig-rcs-freq", "fig-red-map", "fig-trend",
                    "rev-table", "fig-safety", "gate-interval", "gate-cancel", "fig-img", "fig-img-diff",
-                   "img-tracks"):
+                   "img-tracks", "fig-bi-polar", "fig-bi-extinction"):
         assert needed in ids
     assert [label for _k, label in VIEWS] == ["Campaign", "Range & gate", "RCS", "Reduction", "Revisions", "Images",
-                                             "RF safety"]
+                                             "Bistatic", "RF safety"]
     assert "local regulations" in _text(page).lower()  # the caution sits outside the tabs: visible on every view
 
 
