@@ -38,6 +38,7 @@ import pandas as pd
 import xarray as xr
 
 from . import bistatic_references, calibrate, metrics, timedomain
+from .campaign import SweepCubeAxes
 from .constants import C0
 from .errors import InputError
 
@@ -100,7 +101,7 @@ def check_arm_relations(manifest, check) -> None:
 
 # ============================================================================ cubes
 @dataclass
-class ArmCube:
+class ArmCube(SweepCubeAxes):
     """One arm target's sweeps: data (polarization, bistatic, angle, repeat, frequency), files and hashes."""
 
     spec: Any
@@ -110,24 +111,8 @@ class ArmCube:
     parameters: dict[str, str]
 
     @property
-    def name(self) -> str:
-        return self.spec.name
-
-    @property
-    def polarizations(self) -> list[str]:
-        return [str(p) for p in self.data.polarization.values]
-
-    @property
     def bistatic_deg(self) -> np.ndarray:
         return self.data.bistatic.values
-
-    @property
-    def angles_deg(self) -> np.ndarray:
-        return self.data.angle.values
-
-    @property
-    def n_repeats(self) -> int:
-        return self.data.sizes["repeat"]
 
 
 def _plan(manifest, spec, root):

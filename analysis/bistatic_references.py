@@ -30,10 +30,9 @@ bisector, at the frequency f cos(beta/2); Crispin & Siegel, from memory) is stat
 from __future__ import annotations
 
 import numpy as np
-from scipy import special
 
 from .constants import C0
-from .references import _angles, _freq, _pol, _positive, _wiscombe
+from .references import _angles, _freq, _pol, _positive, pec_mie_coefficients
 
 
 def bistatic_angles(bistatic_deg) -> np.ndarray:
@@ -73,19 +72,7 @@ def sphere_s1_s2(frequency_hz, radius_m, scattering_angle_deg) -> tuple[np.ndarr
     f = _freq(frequency_hz)
     a = _positive(radius_m, "radius_m")
     theta = np.deg2rad(_angles(scattering_angle_deg))
-    x = 2 * np.pi * f * a / C0
-    nmax = _wiscombe(x)
-    n = np.arange(1, int(nmax.max()) + 1)
-    xx = x[:, None]
-    with np.errstate(all="ignore"):
-        j = special.spherical_jn(n, xx)
-        jd = special.spherical_jn(n, xx, derivative=True)
-        y = special.spherical_yn(n, xx)
-        yd = special.spherical_yn(n, xx, derivative=True)
-        h, hd = j + 1j * y, jd + 1j * yd
-        an = (j + xx * jd) / (h + xx * hd)
-        bn = j / h
-    use = n[None, :] <= nmax[:, None]
+    n, use, an, bn = pec_mie_coefficients(2 * np.pi * f * a / C0)
     w = np.where(use, (2 * n + 1) / (n * (n + 1.0)), 0.0)
     an, bn = np.where(use, an * w, 0.0), np.where(use, bn * w, 0.0)  # (nf, n)
     pi, tau = _pi_tau(np.cos(theta), n.size)  # (nt, n)

@@ -92,17 +92,9 @@ class SweepFile:
     bistatic_deg: float = 0.0
 
 
-@dataclass
-class TargetCube:
-    """One target's sweeps: data (polarization, angle, repeat, frequency), files and hashes."""
-
-    spec: TargetSpec
-    data: xr.DataArray
-    files: np.ndarray  # str paths, shape (polarization, angle, repeat)
-    hashes: dict[str, str]
-    n_ports: int
-    parameters: dict[str, str]  # polarization -> S-parameter carrying the echo
-    warnings: list[str] = field(default_factory=list)  # what the reader tolerated in its files
+class SweepCubeAxes:
+    """Names and axes of a cube of sweeps (``spec`` and an xarray ``data`` with polarization, angle
+    and repeat dimensions); shared by monostatic and receiver-arm cubes."""
 
     @property
     def name(self) -> str:
@@ -119,6 +111,19 @@ class TargetCube:
     @property
     def n_repeats(self) -> int:
         return self.data.sizes["repeat"]
+
+
+@dataclass
+class TargetCube(SweepCubeAxes):
+    """One target's sweeps: data (polarization, angle, repeat, frequency), files and hashes."""
+
+    spec: TargetSpec
+    data: xr.DataArray
+    files: np.ndarray  # str paths, shape (polarization, angle, repeat)
+    hashes: dict[str, str]
+    n_ports: int
+    parameters: dict[str, str]  # polarization -> S-parameter carrying the echo
+    warnings: list[str] = field(default_factory=list)  # what the reader tolerated in its files
 
     def to_networks(self):
         """The raw sweeps as scikit-rf one-port Networks of the echo parameter.

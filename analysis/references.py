@@ -109,6 +109,28 @@ def rcs_dbsm(amplitude) -> np.ndarray:
 
 
 # ----------------------------------------------------------------------------- sphere
+def pec_mie_coefficients(x) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Mie coefficients of a perfectly conducting sphere in Bohren & Huffman's convention
+    (exp(-i w t)): a_n = psi_n'(x)/xi_n'(x), b_n = psi_n(x)/xi_n(x), psi_n = x j_n(x),
+    xi_n = x h_n^(1)(x) (eq. 4.53 with m -> infinity), x = k a (1-D array).
+
+    Returns (n, use, a_n, b_n): orders 1..max n_max, the mask of orders within each x's
+    Wiscombe n_max (shape (nx, n)), and the coefficients (nx, n; orders past n_max are not used).
+    """
+    x = np.asarray(x, dtype=float)
+    nmax = _wiscombe(x)
+    n = np.arange(1, int(nmax.max()) + 1)
+    xx = x[:, None]
+    with np.errstate(all="ignore"):
+        j = special.spherical_jn(n, xx)
+        jd = special.spherical_jn(n, xx, derivative=True)
+        y = special.spherical_yn(n, xx)
+        yd = special.spherical_yn(n, xx, derivative=True)
+        an = (j + xx * jd) / ((j + 1j * y) + xx * (jd + 1j * yd))
+        bn = j / (j + 1j * y)
+    return n, n[None, :] <= nmax[:, None], an, bn
+
+
 def sphere_amplitude(frequency_hz, radius_m) -> np.ndarray:
     """Exact Mie series of a perfectly conducting sphere, complex amplitude (m), shape (nf,).
 
@@ -122,21 +144,9 @@ def sphere_amplitude(frequency_hz, radius_m) -> np.ndarray:
     f = _freq(frequency_hz)
     a = _positive(radius_m, "radius_m")
     k = _wavenumber(f)
-    x = k * a
-    nmax = _wiscombe(x)
-    n = np.arange(1, int(nmax.max()) + 1)
-    use = n[None, :] <= nmax[:, None]
-    xx = x[:, None]
-    with np.errstate(all="ignore"):
-        j = special.spherical_jn(n, xx)
-        jd = special.spherical_jn(n, xx, derivative=True)
-        y = special.spherical_yn(n, xx)
-        yd = special.spherical_yn(n, xx, derivative=True)
-        h = j - 1j * y
-        hd = jd - 1j * yd
-        an = (j + xx * jd) / (h + xx * hd)
-        bn = j / h
-        terms = (2 * n + 1) * (-1.0) ** n * (an - bn)
+    n, use, an, bn = pec_mie_coefficients(k * a)
+    # h_n^(2) = conj(h_n^(1)) for real x: the engineering coefficients are the conjugates
+    terms = (2 * n + 1) * (-1.0) ** n * (np.conj(an) - np.conj(bn))
     terms = np.where(use, terms, 0.0)
     return 1j * np.sqrt(np.pi) / k * terms.sum(axis=1)
 
