@@ -75,9 +75,29 @@ def trace_names(pg, graph_id: str) -> list:
                                     return el && el.data ? el.data.map(t => t.name || '') : []; }}""")
 
 
-def wait_title(pg, graph_id: str, text: str):
+def wait_title(pg, graph_id: str, text: str, timeout: float | None = None):
     pg.wait_for_function(f"""() => {{ const el = document.querySelector('#{graph_id} .js-plotly-plot');
-        return el && el.layout && el.layout.title && (el.layout.title.text || '').includes({text!r}); }}""")
+        return el && el.layout && el.layout.title && (el.layout.title.text || '').includes({text!r}); }}""",
+                         timeout=timeout)
+
+
+def choose(pg, radio_id: str, label: str, graph_id: str):
+    """Click a radio item and wait until graph_id's title names it.
+
+    A callback answering an earlier change (a new run selected by the previous test, say) can land
+    after the click and set the control back, so the click is repeated until the choice holds.
+    """
+    from playwright.sync_api import TimeoutError as PlaywrightTimeout
+
+    for _ in range(5):
+        pg.locator(f"#{radio_id} label", has_text=label).click()
+        try:
+            wait_title(pg, graph_id, label, timeout=15000)
+            return
+        except PlaywrightTimeout:
+            continue
+    pg.locator(f"#{radio_id} label", has_text=label).click()
+    wait_title(pg, graph_id, label)
 
 
 def open_view(pg, label: str):
@@ -94,8 +114,7 @@ def shot(pg, name: str):
 def test_campaign_view(page):
     assert "RF safety." in page.inner_text("#caution")
     wait_title(page, "fig-check", "HH")
-    page.locator("#campaign-pol label", has_text="VV").click()
-    wait_title(page, "fig-check", "VV")
+    choose(page, "campaign-pol", "VV", "fig-check")
     wait_title(page, "fig-floor", "VV")
     assert "check-sphere" in page.inner_text("#campaign-summary")
     shot(page, "campaign")
@@ -123,8 +142,7 @@ def test_rcs_view(page):
     open_view(page, "RCS")
     page.wait_for_selector("#fig-rcs-freq .main-svg")
     wait_title(page, "fig-rcs-freq", "HH")
-    page.locator("#rcs-pol label", has_text="VV").click()
-    wait_title(page, "fig-rcs-freq", "VV")
+    choose(page, "rcs-pol", "VV", "fig-rcs-freq")
     wait_title(page, "fig-rcs-polar", "VV")
     wait_title(page, "fig-rcs-map", "VV")
     shot(page, "rcs")
@@ -134,8 +152,7 @@ def test_reduction_view(page):
     open_view(page, "Reduction")
     page.wait_for_selector("#fig-red-map .main-svg")
     wait_title(page, "fig-red-curve", "HH")
-    page.locator("#red-pol label", has_text="VV").click()
-    wait_title(page, "fig-red-curve", "VV")
+    choose(page, "red-pol", "VV", "fig-red-curve")
     wait_title(page, "fig-red-map", "VV")
     assert "band-averaged reduction" in page.inner_text("#red-metrics")
     shot(page, "reduction")
