@@ -51,20 +51,24 @@ RANGES = {
     "roll_deg": (-360.0, 360.0, "deg"),
     **{k: (1e-6, 1e3, "m") for k in ("radius_m", "width_m", "height_m", "length_m", "fold_m", "face_m", "edge_m")},
 }
+DIMENSION_KEYS = ("radius_m", "width_m", "height_m", "length_m", "fold_m", "face_m", "edge_m")
+# optional tolerance (half-width of a rectangular distribution, m) of each shape dimension: radius_tolerance_m...
+TOLERANCE_KEYS = {k[:-2] + "_tolerance_m": k for k in DIMENSION_KEYS}
+RANGES.update({k: (0.0, 1e3, "m") for k in (*TOLERANCE_KEYS, "range_tolerance_m")})
 TEXT_KEYS = ("notes", "operator_notes")
 SPAN_PER_SIZE = 2.0  # default gate span = 2 x the target's largest dimension
 
 _SECTION_KEYS = {
     "campaign": {"name", "prototype", "date", "notes", "operator_notes"},
-    "chamber": {"range_m", "offset_m", "bistatic_deg", "name", "notes"},
+    "chamber": {"range_m", "offset_m", "bistatic_deg", "name", "notes", "range_tolerance_m"},
     "gate": {"span_m", "center_m", "window", "kaiser_beta", "pad_factor", "edge_fraction", "trim_ghz"},
     "band": {"start_ghz", "stop_ghz"},
 }
 _TARGET_KEYS = {
     "name", "role", "files", "parameter", "background", "baseline", "revision", "range_m",
     "size_m", "gate_span_m", "angle_deg", "polarization", "calibrates", "shape", "specular_deg",
-    "notes", "date", "bistatic_deg",
-} | {k for keys in SHAPE_KEYS.values() for k in keys}
+    "notes", "date", "bistatic_deg", "range_tolerance_m",
+} | {k for keys in SHAPE_KEYS.values() for k in keys} | set(TOLERANCE_KEYS)
 
 
 @dataclass(frozen=True)
@@ -72,6 +76,7 @@ class Chamber:
     range_m: float
     offset_m: float = 0.0
     bistatic_deg: float = 0.0
+    range_tolerance_m: float = 0.0  # half-width (m) of each target's range, where it differs from the reference's
 
 
 @dataclass(frozen=True)
@@ -107,6 +112,8 @@ class TargetSpec:
     specular_deg: float = 0.0
     bistatic_deg: float = 0.0
     arm: bool = False  # a receiver-arm target: its pattern has {bistatic} or it sets bistatic_deg
+    tolerances: dict[str, float] = field(default_factory=dict)  # shape dimension key -> tolerance (m)
+    range_tolerance_m: float = 0.0
 
     @property
     def is_check(self) -> bool:
@@ -403,6 +410,8 @@ def parse_manifest(path: str | Path, collect: bool = False) -> tuple[Manifest | 
                              positive=True, default=1.0),
         offset_m=check.number(chamber_t, "offset_m", "[chamber]", hline, default=0.0),
         bistatic_deg=check.number(chamber_t, "bistatic_deg", "[chamber]", hline, default=0.0),
+        range_tolerance_m=check.number(chamber_t, "range_tolerance_m", "[chamber]", hline, default=0.0,
+                                       nonnegative=True),
     )
 
     gate_t = doc.get("gate", {}) if isinstance(doc.get("gate", {}), dict) else {}
@@ -518,6 +527,9 @@ def _parse_targets(doc: dict, text: str, check: _Checker, chamber: Chamber) -> l
             specular_deg=check.number(t, "specular_deg", label, line, default=0.0),
             bistatic_deg=check.number(t, "bistatic_deg", label, line, default=chamber.bistatic_deg),
             arm="{bistatic}" in files or "bistatic_deg" in t,
+            tolerances=_tolerances(t, shape, label, check, text, line),
+            range_tolerance_m=check.number(t, "range_tolerance_m", label, line, default=chamber.range_tolerance_m,
+                                           nonnegative=True),
         ))
     return targets
 
@@ -550,6 +562,21 @@ def _check_parameter(param, label, check: _Checker, line):
         return out
     check.problem(f"{label}: parameter must be a string like \"S21\" or a table of polarizations", line)
     return None
+
+
+def _tolerances(t: dict, shape, label: str, check: "_Checker", text: str, line: int | None) -> dict[str, float]:
+    """{dimension key: tolerance m} from the optional ``<dimension>_tolerance_m`` keys of a shape."""
+    out = {}
+    for key, dim in TOLERANCE_KEYS.items():
+        if key not in t:
+            continue
+        if shape is None or dim not in shape:
+            check.problem(f"{label}: '{key}' given, but the target has no '{dim}'", _key_line(text, key, line))
+            continue
+        value = check.number(t, key, label, line, nonnegative=True)
+        if value:
+            out[dim] = value
+    return out
 
 
 def _parse_shape(t: dict, label: str, check: _Checker, text: str, line: int | None):

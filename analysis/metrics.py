@@ -87,11 +87,97 @@ def aggregate_bound(subject_limited: np.ndarray, baseline_limited: np.ndarray) -
     return {(False, False): "none", (True, False): "lower", (False, True): "upper"}.get((s, b), "undetermined")
 
 
+BOUND_PROBABILITY = 0.95  # one-sided probability with which a per-point bound holds
+BOUND_Z = 1.6448536269514722  # the standard normal quantile at BOUND_PROBABILITY (scipy.stats.norm.ppf)
+
+
+def floor_limits(sigma, floor, margin_db: float, z: float = BOUND_Z):
+    """Per point: (floor-limited mask, upper limit, lower limit) of the true sigma (m^2).
+
+    sigma = |s + n|^2 is measured with complex Gaussian noise n of power ``floor`` N. The noise's
+    component along s is normal with variance N / 2 and |s + n| >= |s| + that component, so
+    |s| <= |m| + z sqrt(N / 2) holds with probability at least Phi(z) (BOUND_PROBABILITY): the upper
+    limit. The lower limit (|m| - z sqrt(N / 2), at least 0) is rougher; a point is floor-limited
+    when its lower limit is below floor + margin, i.e. when it may not be clear of the floor.
+    """
+    amp = np.sqrt(np.asarray(sigma, float))
+    h = z * np.sqrt(np.asarray(floor, float) / 2)
+    upper = (amp + h) ** 2
+    lower = np.maximum(amp - h, 0.0) ** 2
+    return lower < floor * 10 ** (margin_db / 10), upper, lower
+
+
 def bounded_sigma(sigma: np.ndarray, floor: np.ndarray, margin_db: float) -> tuple[np.ndarray, np.ndarray]:
-    """(sigma with floor-limited points replaced by floor + margin, the floor-limited mask)."""
-    level = floor * 10 ** (margin_db / 10)
-    limited = sigma < level
-    return np.where(limited, level, sigma), limited
+    """(sigma with floor-limited points replaced by their upper limit, the floor-limited mask).
+
+    A reduction computed with a subject point so replaced is a lower bound that holds with
+    probability BOUND_PROBABILITY (:func:`floor_limits`); with a baseline point replaced, an upper bound.
+    """
+    limited, upper, _ = floor_limits(sigma, floor, margin_db)
+    return np.where(limited, upper, sigma), limited
+
+
+def sum_noise_u(sigma, floor, frequency_hz, cell_hz: float, axis=None):
+    """Standard uncertainty of noise-corrected sums of sigma - floor (m^2): per point the power of
+    |s + n|^2 varies by sqrt(2 sigma N + N^2) for complex Gaussian noise of power N; points within a
+    correlation cell (an inverse gate duration) add linearly, cells and angles in quadrature.
+
+    ``axis`` None: the whole (angle, frequency) sum; 0: per frequency (over angles); 1: per angle.
+    """
+    sigma = np.atleast_2d(np.asarray(sigma, float))
+    floor = np.broadcast_to(floor, sigma.shape)
+    u = np.sqrt(np.maximum(2 * np.maximum(sigma - floor, 0) * floor + floor ** 2, 0))
+    if axis == 0:
+        return np.sqrt(np.sum(u ** 2, axis=0))
+    f = np.asarray(frequency_hz, float)
+    cell = np.floor((f - f[0]) / cell_hz).astype(int) if cell_hz > 0 else np.arange(len(f))
+    sums = np.zeros((u.shape[0], cell.max() + 1))
+    np.add.at(sums, (slice(None), cell), u)
+    per_angle = np.sqrt(np.sum(sums ** 2, axis=1))
+    return per_angle if axis == 1 else float(np.sqrt(np.sum(per_angle ** 2)))
+
+
+def significant_ratio_db(b_sum, s_sum, u_b, u_s, k: float):
+    """(10 log10(b / s) dB, bound label) of noise-corrected sums with standard uncertainties.
+
+    A sum below k u is not clear of the floor: it is replaced by max(sum, 0) + k u, an upper
+    limit of it, and the ratio becomes a lower bound (subject), an upper bound (baseline) or
+    undetermined (both). Works element-wise on arrays.
+    """
+    b_sum, s_sum = np.asarray(b_sum, float), np.asarray(s_sum, float)
+    s_lim = s_sum < k * np.asarray(u_s)
+    b_lim = b_sum < k * np.asarray(u_b)
+    s_val = np.where(s_lim, np.maximum(s_sum, 0) + k * np.asarray(u_s), s_sum)
+    b_val = np.where(b_lim, np.maximum(b_sum, 0) + k * np.asarray(u_b), b_sum)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        value = 10 * np.log10(b_val / np.maximum(s_val, 1e-300))
+    return value, point_bounds(s_lim, b_lim)
+
+
+def corrected_reduction(sigma_b, floor_b, sigma_s, floor_s, frequency_hz, cell_hz: float, k: float) -> dict:
+    """The band and sector metrics from noise-corrected sums (README, The processing chain, step 6).
+
+    Inputs (angle, frequency) over the sector and the band; floors (frequency,) m^2. The floor's
+    noise power is subtracted before summing (E|s + n|^2 = |s|^2 + N), so a cloak near the floor is
+    not made to look worse than it is; a sum not clear of the floor at k standard uncertainties
+    makes its metric a bound (:func:`significant_ratio_db`). Returns band_db, band_bound,
+    curve_db (f), curve_bound (f), angle_db (angle) and the sums.
+    """
+    sb, ss = np.asarray(sigma_b, float), np.asarray(sigma_s, float)
+    nb, ns = np.broadcast_to(floor_b, sb.shape), np.broadcast_to(floor_s, ss.shape)
+    band_db, band_bound = significant_ratio_db(
+        np.sum(sb - nb), np.sum(ss - ns), sum_noise_u(sb, nb, frequency_hz, cell_hz),
+        sum_noise_u(ss, ns, frequency_hz, cell_hz), k)
+    curve_db, curve_bound = significant_ratio_db(
+        np.sum(sb - nb, axis=0), np.sum(ss - ns, axis=0), sum_noise_u(sb, nb, frequency_hz, cell_hz, axis=0),
+        sum_noise_u(ss, ns, frequency_hz, cell_hz, axis=0), k)
+    angle_db, _ = significant_ratio_db(
+        np.sum(sb - nb, axis=1), np.sum(ss - ns, axis=1), sum_noise_u(sb, nb, frequency_hz, cell_hz, axis=1),
+        sum_noise_u(ss, ns, frequency_hz, cell_hz, axis=1), k)
+    return {"band_db": float(band_db), "band_bound": str(band_bound), "curve_db": curve_db,
+            "curve_bound": curve_bound, "angle_db": angle_db,
+            "baseline_sum": float(np.sum(sb - nb)), "subject_sum": float(np.sum(ss - ns)),
+            "baseline_curve_sum": np.sum(sb - nb, axis=0), "subject_curve_sum": np.sum(ss - ns, axis=0)}
 
 
 def reduction_db(sigma_baseline, sigma_subject):
@@ -185,24 +271,6 @@ def correlated_sum_uncertainty(u_abs: np.ndarray, frequency_hz: np.ndarray, cell
     sums = np.zeros((u.shape[0], cell.max() + 1))
     np.add.at(sums, (slice(None), cell), u)
     return float(np.sqrt(np.sum(sums ** 2)))
-
-
-def band_reduction_uncertainty_db(sigma_b, floor_b, u_rep_b, sigma_s, floor_s, u_rep_s,
-                                  frequency_hz, cell_hz: float, k: float = 2.0) -> float:
-    """Expanded uncertainty (coverage k, dB) of the band-averaged reduction (GUM, JCGM 100:2008).
-
-    Per point, the floor interference gives a relative power uncertainty sqrt(2) 10^(-SNR/20)
-    (twice the amplitude's); repeatability adds u_rep (relative power, from repeated sweeps).
-    Sums over the band follow :func:`correlated_sum_uncertainty`; baseline and subject are
-    independent. The calibration is common to both and cancels in the ratio.
-    """
-    total = 0.0
-    for sigma, floor, u_rep in ((sigma_b, floor_b, u_rep_b), (sigma_s, floor_s, u_rep_s)):
-        rel = np.sqrt(2.0) * np.sqrt(floor / sigma)
-        u_floor = correlated_sum_uncertainty(rel * sigma, frequency_hz, cell_hz)
-        u_r = correlated_sum_uncertainty(u_rep * sigma, frequency_hz, cell_hz) if u_rep is not None else 0.0
-        total += (u_floor ** 2 + u_r ** 2) / np.sum(sigma) ** 2
-    return float(k * DB * np.sqrt(total))
 
 
 OFFSET_MIN_CORRELATION = 0.5  # below this the patterns share too little structure to align

@@ -7,6 +7,7 @@ writers, the store, the report and the dashboard read. Nothing here does I/O.
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -15,7 +16,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import __version__, calibrate, metrics, references, timedomain
+from . import __version__, calibrate, metrics, references, timedomain, uncertainty
 from .campaign import ECHO_WARNING, Campaign, TargetCube, band_problem, flat_top_problem, wrap_angle_deg
 from .campaign import _check_echo_in_gate as check_echo_in_gate
 from .constants import C0
@@ -152,7 +153,12 @@ class ProcessingResult:
             parts["rcs_dbsm"].append((10 * np.log10(sigma)).ravel())
             parts["phase_deg"].append(np.degrees(np.angle(amp)).ravel())
             parts["floor_dbsm"].append((10 * np.log10(floor)).ravel())
-            parts["floor_limited"].append((sigma < floor * 10 ** (margin / 10)).ravel())
+            parts["floor_limited"].append(metrics.floor_limits(sigma, floor, margin)[0].ravel())
+            terms = (self.settings.get("uncertainty") or {}).get("targets", {}).get(name)
+            k_cov = (self.settings.get("uncertainty") or {}).get("coverage_k", 2.0)
+            u = np.stack([uncertainty.point_u_db(sigma[i], floor[i], terms, i, k_cov, self.valid_mask)
+                          for i in range(npol)])
+            parts["u_rcs_db"].append(u.ravel())
         cols = {k: np.concatenate(v) for k, v in parts.items()}
         cols["target"] = pd.Categorical.from_codes(cols["target"], categories=subjects)
         cols["polarization"] = pd.Categorical.from_codes(cols["polarization"], categories=POLARIZATION_ORDER)
@@ -191,7 +197,11 @@ class ProcessingResult:
         out = {"campaign": self.campaign, "prototype": self.prototype, "date": self.date,
                "check_failed": bool(failed), "failed_checks": failed,
                "settings": self.settings, "checks": self.checks, "floor": self.floor,
-               "metrics": self.metrics, "warnings": self.warnings, "scattering_centres": self.centres}
+               "metrics": self.metrics, "warnings": self.warnings, "scattering_centres": self.centres,
+               "uncertainty_budget": [
+                   {"subject": m["subject"], "baseline": m["baseline"], "polarization": m["polarization"],
+                    "metric": metric, **budget}
+                   for m in self.metrics for metric, budget in (m.get("uncertainty_budget") or {}).items()]}
         if self.arm is not None:
             out["bistatic"] = self.arm.summary
         return out
@@ -206,7 +216,7 @@ def check_failure_text(c: dict) -> str:
 POLARIZATION_ORDER = ["HH", "VV", "HV", "VH"]
 BOUND_ORDER = sorted(metrics.BOUNDS)  # sorted, for searchsorted
 RCS_COLUMNS = ["target", "polarization", "angle_deg", "frequency_hz", "rcs_dbsm", "phase_deg", "floor_dbsm",
-               "floor_limited"]
+               "floor_limited", "u_rcs_db"]
 REDUCTION_COLUMNS = ["subject", "baseline", "polarization", "angle_deg", "frequency_hz", "reduction_db", "bound"]
 
 
@@ -218,11 +228,12 @@ def _gate_kwargs(campaign: Campaign, settings: ProcessSettings) -> dict[str, Any
 
 
 def _subtracted(campaign: Campaign, cube: TargetCube, settings: ProcessSettings, gate: dict, center, span):
-    """Background-subtracted sweeps, repeats kept: (pol, angle, repeat, f), and the background repeats."""
+    """Background-subtracted sweeps, repeats kept: (pol, angle, repeat, f), the background's cube and
+    what was subtracted (pol, angle, 1 or repeat, f); None and None when there is no background."""
     f = campaign.frequency_hz
     bg_spec = campaign.manifest.background_of(cube.spec)
     if bg_spec is None:  # no background measured: gating alone (README, The processing chain)
-        return cube.data.values, None
+        return cube.data.values, None, None
     bg = campaign.cube(bg_spec.name)
     bg_data = bg.data.sel(polarization=cube.polarizations).values
     bg_mean = bg_data.mean(axis=2)
@@ -232,7 +243,7 @@ def _subtracted(campaign: Campaign, cube: TargetCube, settings: ProcessSettings,
         bg_b = np.broadcast_to(bg_at, data.shape)
         bg_at = calibrate.drift_aligned_background(f, data, bg_b, center, span, gate["window"],
                                                    gate["kaiser_beta"], gate["pad_factor"])
-    return data - bg_at, bg
+    return data - bg_at, bg, bg_at
 
 
 def _gate_of(campaign: Campaign, spec: TargetSpec, settings: ProcessSettings, offset_m: float | None):
@@ -296,7 +307,7 @@ def estimate_offset_m(campaign: Campaign, settings: ProcessSettings) -> tuple[fl
     cube = campaign.cube(ref.name)
     gate = _gate_kwargs(campaign, settings)
     f = campaign.frequency_hz
-    d, _ = _subtracted(campaign, cube, replace(settings, drift_correction=False), gate, 0.0, 0.0)
+    d, _, _ = _subtracted(campaign, cube, replace(settings, drift_correction=False), gate, 0.0, 0.0)
     unamb = timedomain.unambiguous_range_m(f)
     search = (0.25 * ref.range_m, unamb * 0.98)
     peak = timedomain.find_echo_range(f, d.reshape(-1, d.shape[-1]), gate["window"], gate["kaiser_beta"],
@@ -362,7 +373,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
             raise InputError(f"target {name}: gate centre {center:g} m{how} is not a positive range", m.path,
                              cube.spec.line)
         _flat_top_warning(campaign, cube.spec, center, span, offset_est, warnings)
-        d, bg = _subtracted(campaign, cube, settings, gate, center, span)
+        d, bg, bg_at = _subtracted(campaign, cube, settings, gate, center, span)
         if d.shape[2] > 1:
             g_all = timedomain.time_gate(f, d, center, span, **gate)
             g_mean, var_mean, n_rep = calibrate.mean_over_repeats(g_all, axis=2)
@@ -380,12 +391,14 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
                     f, bg.data.sel(polarization=cube.polarizations).values, center, span, **gate)
             noise, how = noise_cache[key]
             resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
+        clutter = None if bg_at is None else timedomain.time_gate(f, bg_at.mean(axis=2), center, span, **gate)
         gated[name] = {"cube": cube, "g": g_mean, "var": var_mean, "noise": resid, "floor_method": how,
-                       "center": center, "span": span}
+                       "center": center, "span": span, "noise_sweep": noise, "n_rep": n_rep, "bg": bg,
+                       "clutter": clutter}
         tick(f"gate {name}")
 
     # ---- calibration factor per polarization
-    factors, ref_info = _calibration_factors(campaign, gated, settings, warnings)
+    factors, ref_info, ref_use = _calibration_factors(campaign, gated, settings, warnings)
     tick("calibrate")
 
     # ---- valid band and reporting band
@@ -423,9 +436,12 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         if vals:
             floor_summary[pol] = float(np.median(np.concatenate(vals)))
 
-    metric_rows, reductions = _cloak_metrics(targets, f, valid, band_mask, min(spans), settings, checks,
-                                             warnings)
+    metric_rows, reductions, contexts = _cloak_metrics(targets, f, valid, band_mask, min(spans), settings, checks,
+                                                       warnings)
     tick("metrics")
+    point_terms = _uncertainty_budgets(campaign, settings, gate, gated, factors, ref_use, targets, metric_rows,
+                                       contexts, warnings)
+    tick("uncertainty")
 
     hashes = campaign.file_hashes
     settings_out = {
@@ -450,6 +466,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         "references": ref_info,
         "files": {_rel(p, m.folder): h for p, h in sorted(hashes.items())},
         "process_settings": settings.as_dict(),
+        "uncertainty": point_terms,
     }
     result = ProcessingResult(
         campaign=m.name, prototype=m.prototype, date=m.date.isoformat() if m.date else None,
@@ -470,6 +487,112 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
     return result
 
 
+def _uncertainty_budgets(campaign: Campaign, settings: ProcessSettings, gate: dict, gated: dict, factors: dict,
+                         ref_use: dict, targets: dict, rows: list[dict], contexts, warnings: list[str]) -> dict:
+    """Attach each metric row's uncertainty budget (README, Uncertainty budget) and return the
+    per-point terms of u_rcs_db (JSON, kept in the run's settings)."""
+    f = campaign.frequency_hz
+    m = campaign.manifest
+    repeated = {name: c.data.values for name, c in campaign.cubes.items()
+                if c.spec.role in ("background", "reference") and c.data.shape[2] > 1}
+    drift = uncertainty.drift_from_repeats(repeated)
+    if not drift.known and contexts:
+        warnings.append("uncertainty: no repeated background or reference sweeps, so drift is not in the budget; "
+                        "measure them at least twice")
+    model_targets, noise_std, backgrounds = {}, {}, {}
+    for name, g in gated.items():
+        cube = g["cube"]
+        gain = timedomain.gate_noise_gain(f, g["center"], g["span"], **gate)
+        std = np.sqrt(g["noise_sweep"] / np.maximum(gain, 1e-300))
+        bg = g["bg"]
+        bg_index = None
+        if bg is not None:
+            keys = {round(float(a), 6): i for i, a in enumerate(wrap_angle_deg(bg.angles_deg))}
+            bg_index = (np.zeros(len(cube.angles_deg), int) if len(bg.angles_deg) == 1 else
+                        np.array([keys[round(float(a), 6)] for a in wrap_angle_deg(cube.angles_deg)]))
+            if bg.name not in backgrounds:
+                backgrounds[bg.name] = uncertainty.BackgroundNoise(
+                    pols=list(cube.polarizations), n_angles=len(bg.angles_deg), n_rep=bg.n_repeats, noise_std=std)
+        model_targets[name] = uncertainty.GatedTarget(
+            name=name, pols=list(cube.polarizations), g=g["g"], clutter=g["clutter"], n_rep=g["n_rep"],
+            background=None if bg is None else bg.name, bg_index=bg_index, center_m=g["center"], span_m=g["span"],
+            range_m=cube.spec.range_m, factor=np.stack([factors[p] for p in cube.polarizations]))
+        noise_std[name] = std
+    for b in backgrounds.values():  # every target of a background must find its polarizations there
+        pols = sorted({p for t in model_targets.values() if t.background for p in t.pols},
+                      key=POLARIZATION_ORDER.index)
+        if set(pols) - set(b.pols):
+            b.pols = pols
+            b.noise_std = np.broadcast_to(b.noise_std[:1], (len(pols), len(f))).copy()
+    model = uncertainty.ChainModel(frequency_hz=f, gate=gate, targets=model_targets, noise_std=noise_std,
+                                   backgrounds=backgrounds, reference_use=ref_use, drift=drift)
+
+    regated: dict[tuple, np.ndarray] = {}
+
+    def regate(name, center, span):
+        if (name, center, span) not in regated:
+            d, _, _ = _subtracted(campaign, campaign.cubes[name], settings, gate, center, span)
+            regated[(name, center, span)] = timedomain.time_gate(f, d, center, span, **gate).mean(axis=2)
+        return regated[(name, center, span)]
+
+    ratios, tolerances, ref_range = {}, {}, {}
+    for pol, uses in ref_use.items():
+        per_key: dict[str, list] = {}
+        for name, _ip, angles in uses:
+            spec = campaign.cube(name).spec
+            ref_range[pol] = spec.range_m
+            base_pol = campaign.cube(name).polarizations[_ip]
+            aspect = 0.0 if _angle_independent(spec.shape) else float(
+                wrap_angle_deg(campaign.cube(name).angles_deg[angles[0]] - spec.specular_deg))
+            for key, r in uncertainty.dimension_ratios(spec.shape, spec.tolerances, f, aspect, base_pol).items():
+                per_key.setdefault(key, []).append(r)
+                tolerances.setdefault(pol, {})[key] = spec.tolerances[key]
+        ratios[pol] = {k: np.prod(v, axis=0) ** (1 / len(v)) for k, v in per_key.items()}
+    steps = {}
+    for name, t in targets.items():
+        a = np.sort(np.asarray(t.amplitude.angle.values, float))
+        steps[name] = float(np.median(np.diff(a))) if a.size > 1 else 0.0
+    floor_rel, floor_dof, floor_note = _floor_level_uncertainty(gated)
+    inputs = uncertainty.TypeBInputs(
+        floor_rel_u=floor_rel, floor_dof=floor_dof, floor_note=floor_note,
+        regate=regate, ranges_m={n: c.spec.range_m for n, c in campaign.cubes.items()},
+        range_tolerance_m={n: c.spec.range_tolerance_m for n, c in campaign.cubes.items()},
+        reference_ratios=ratios, reference_tolerances=tolerances, reference_range_m=ref_range,
+        angle_step_deg=steps)
+    floor_sweeps = sum(b.n_rep * b.n_angles for b in backgrounds.values()) or max(
+        (g["n_rep"] for g in gated.values()), default=1)
+    budgets, prop = uncertainty.metric_budgets(model, contexts, inputs, settings.coverage_k, floor_sweeps)
+    for row, budget in zip(rows, budgets):
+        row["uncertainty_budget"] = budget
+        row["band_reduction_uncertainty_db"] = budget["band_reduction_db"]["expanded_u_db"]
+        row["sector_curve_uncertainty_db"] = budget["sector_curve_db"]["expanded_u_db_per_frequency"]
+        row["best_reduction_uncertainty_db"] = budget["best_reduction_db"]["expanded_u_db"]
+    if not ref_use:
+        return {"coverage_k": settings.coverage_k, "targets": {}}
+    return uncertainty.point_terms(prop, inputs, settings.coverage_k)
+
+
+def _floor_level_uncertainty(gated: dict) -> tuple[float, float | None, str]:
+    """Relative standard uncertainty of the floor's noise power, its degrees of freedom and how known.
+
+    From N repeats at M angles, smoothed over FLOOR_SMOOTHING_CELLS correlation cells, a power
+    estimate has about nu = 2 (N - 1) M cells real degrees of freedom; its relative standard
+    uncertainty is sqrt(2 / nu) (chi-square). Without repeats the estimate is a rough one from the
+    range profile: 50 % (a stated assumption).
+    """
+    worst = None
+    for g in gated.values():
+        bg = g["bg"]
+        n, m = (bg.n_repeats, len(bg.angles_deg)) if bg is not None else (g["n_rep"], len(g["cube"].angles_deg))
+        if worst is None or (n - 1) * m < worst[0] * worst[1]:
+            worst = (n - 1, m)
+    if worst is None or worst[0] < 1:
+        return 0.5, None, "no repeated sweeps: estimated from the range profile, an assumed 50 %"
+    nu = 2 * worst[0] * worst[1] * calibrate.FLOOR_SMOOTHING_CELLS
+    return math.sqrt(2 / nu), nu, (f"{worst[0] + 1} repeats x {worst[1]} angle(s), smoothed over "
+                                   f"{calibrate.FLOOR_SMOOTHING_CELLS} cells: {nu} degrees of freedom")
+
+
 def _rel(path: str, folder) -> str:
     return os.path.relpath(path, folder).replace(os.sep, "/")
 
@@ -478,6 +601,7 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
     f = campaign.frequency_hz
     factors: dict[str, np.ndarray] = {}
     info: list[dict] = []
+    ref_use: dict[str, list] = {}  # pol -> [(reference, pol index, angle indices averaged)]
     for spec in campaign.manifest.by_role("reference"):
         g = gated[spec.name]
         cube = g["cube"]
@@ -498,14 +622,17 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
                                 "shift_spread_m": float(np.ptp(shifts))}
                     _centring_warning(spec, pol, f, centring, warnings)
                     how = f"average of {len(cube.angles_deg)} angles, each aligned on its echo delay"
+                    ref_use[pol] = [(spec.name, ip, np.arange(len(cube.angles_deg)))]
                 else:
                     d_ref = g["g"][ip, 0]
                     how = "single angle"
+                    ref_use[pol] = [(spec.name, ip, np.array([0]))]
             else:
                 miss = wrap_angle_deg(cube.angles_deg - spec.specular_deg)
                 ia = int(np.argmin(np.abs(miss)))
                 aspect = float(miss[ia])  # theory at the measured angle (README, step 3)
                 d_ref = g["g"][ip, ia]
+                ref_use[pol] = [(spec.name, ip, np.array([ia]))]
                 how = (f"sweep at {cube.angles_deg[ia]:g} deg (specular {spec.specular_deg:g} deg), "
                        f"theory at {aspect:g} deg from specular")
                 if abs(aspect) > SPECULAR_MISS_DEG:
@@ -519,12 +646,13 @@ def _calibration_factors(campaign: Campaign, gated: dict, settings: ProcessSetti
     for pol in sorted(subject_pols - set(factors)):
         if pol in ("HV", "VH") and "HH" in factors and "VV" in factors:
             factors[pol] = calibrate.geometric_mean_factor(factors["HH"], factors["VV"])
+            ref_use[pol] = ref_use["HH"] + ref_use["VV"]  # K = sqrt(K_HH K_VV): half of each relative error
             info.append({"target": None, "polarization": pol, "shape": None,
                          "method": "geometric mean of the HH and VV calibrations", "approximate": True})
             warnings.append(f"{pol}: calibrated from the geometric mean of HH and VV (approximate)")
         else:
             raise InputError(f"no reference calibrates {pol}", campaign.manifest.path)
-    return factors, info
+    return factors, info, ref_use
 
 
 def _flat_top_warning(campaign: Campaign, spec: TargetSpec, center: float, span: float, offset_est, warnings):
@@ -634,7 +762,8 @@ def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, setting
 
 
 def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSettings, checks, warnings):
-    rows, reductions = [], {}
+    """Metric rows, per-point reductions and, per row, the context its uncertainty budget needs."""
+    rows, reductions, contexts = [], {}, []
     cell_hz = C0 / (2 * min_span)
     margin = settings.floor_margin_db
     for name, t in targets.items():
@@ -693,23 +822,30 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                 if mismatch not in warnings:
                     warnings.append(mismatch)
             fb = f[band_mask]
-            band_red = metrics.band_reduction_db(b_b[sel], s_b[sel])
-            curve = metrics.sector_curve_db(b_b[sel], s_b[sel])
+            cr = metrics.corrected_reduction(b_sig[sel], b_floor[0, band_mask], s_use[sel], s_floor[0, band_mask], fb,
+                                             cell_hz, settings.coverage_k)
+            band_red, curve = cr["band_db"], cr["curve_db"]
             bw = metrics.bandwidth_above(fb, curve, settings.threshold_db)
-            worst_a, worst_r = metrics.worst_angle(s_angles[sec], b_b[sel], s_b[sel])
-            u = metrics.band_reduction_uncertainty_db(
-                b_b[sel], b_floor[sel], None if b_rep is None else b_rep[sel],
-                s_b[sel], s_floor[sel], None if s_rep is None else s_rep[sel], fb, cell_hz, settings.coverage_k)
+            iw = int(np.argmin(cr["angle_db"]))
+            worst_a, worst_r = float(s_angles[sec][iw]), float(cr["angle_db"][iw])
             check_err = [c["max_error_db"] for c in checks if c["polarization"] == pol]
+            contexts.append(uncertainty.RowContext(
+                subject=name, baseline=t.baseline, pol=pol,
+                ip_s=[str(p) for p in t.amplitude.polarization.values].index(pol),
+                ip_b=[str(p) for p in base.amplitude.polarization.values].index(pol),
+                idx=np.asarray(idx), sector=sec, band=band_mask, floor_s=s_floor[0], floor_b=b_floor[0],
+                margin_db=margin, angles=np.asarray(s_angles, float), offset_deg=offset if aligned else None,
+                frequency_hz=f, cell_hz=cell_hz, k=settings.coverage_k, nominal=cr))
             rows.append({
                 "subject": name, "baseline": t.baseline, "revision": t.revision, "polarization": pol,
                 "band_reduction_db": band_red,
-                "band_reduction_uncertainty_db": u,
+                "band_reduction_uncertainty_db": None,  # the budget's expanded value (_uncertainty_budgets)
                 "best_reduction_db": bw.best_db, "best_frequency_hz": bw.best_hz,
                 "bandwidth_hz": bw.width_hz, "bandwidth_start_hz": bw.start_hz, "bandwidth_stop_hz": bw.stop_hz,
                 "bandwidth_truncated": bw.truncated, "fractional_bandwidth": bw.fractional,
                 "worst_angle_deg": worst_a, "worst_angle_reduction_db": worst_r,
-                "bound": metrics.aggregate_bound(s_lim[sel], b_lim[sel]),
+                "bound": cr["band_bound"],
+                "sector_curve_bound": [str(x) for x in cr["curve_bound"]],
                 "floor_limited_points": int(np.sum(s_lim[sel] | b_lim[sel])),
                 "points": int(s_lim[sel].size),
                 "mounting_offset_deg": offset,
@@ -732,5 +868,5 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                 "sector_curve_db": [float(x) for x in curve],
                 "sector_curve_frequency_hz": [float(x) for x in fb],
             })
-    return rows, reductions
+    return rows, reductions, contexts
 

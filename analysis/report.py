@@ -27,8 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import figures
-from .constants import C0
+from . import figures, metrics, uncertainty
 from .errors import InputError
 
 PLOTLY_CONFIG = {"displaylogo": False, "responsive": True,
@@ -314,28 +313,48 @@ def _shape_text(shape) -> str:
 # --------------------------------------------------------------------------- statements
 
 def uncertainty_statement(result) -> str:
+    """The report's Uncertainty section: how the budgets are made, then one budget table per metric."""
     s = result.settings
     k = s.get("coverage_k", 2)
-    spans = [g["span_m"] for g in s.get("gates", {}).values()]
-    cell = f" (c0 / (2 x gate span) = {C0 / (2 * min(spans)) / 1e6:.0f} MHz here)" if spans else ""
     margin = s.get("floor_margin_db", 10)
-    return f"""<div id="uncertainty-statement">
-<p>The ± values are expanded uncertainties with coverage factor k = {k:g}, combined per the GUM
-(JCGM 100:2008) from the floor interference error, 20 log10(1 ± 10<sup>−SNR/20</sup>) dB for a
-signal-to-floor ratio SNR, and the repeatability of repeated sweeps. Frequency samples closer than one
-inverse gate duration{_esc(cell)} are treated as fully correlated, so averaging them does not shrink the
-uncertainty. The calibration (reference target, its tolerance, the system response) is common to the
-baseline and the cloaked subject measured in the same setup and cancels in the reduction; it does not
-cancel in absolute RCS, whose accuracy is seldom better than about 0.5 dB in practice (Knott, <i>Radar
-Cross Section Measurements</i>).</p>
-<p>The floor is estimated from the background measurements. It does not see the interaction between
-target and support, so it is a lower estimate of the true floor, and the uncertainties above are lower
-estimates too. A point less than {margin:g} dB above the floor is floor-limited and its reduction is a
-bound: "at least X dB" when the cloaked subject is at the floor (lower bound), "at most X dB" when the
-baseline is (upper bound), "undetermined" when both are. The band-averaged reduction is
-10 log10(Σ σ<sub>baseline</sub> / Σ σ<sub>subject</sub>) over every frequency of the reporting band and
-every angle of the sector (linear sums, then dB).</p>
-</div>"""
+    parts = [f"""<div id="uncertainty-statement">
+<p>Every ± value is an expanded uncertainty U = k u<sub>c</sub> with coverage factor k = {k:g}, where the
+combined standard uncertainty u<sub>c</sub> is the root sum of squares of the components below (GUM,
+JCGM 100:2008). Noise and drift are propagated through the chain to first order: background subtraction,
+the time gate (a linear operator, so noise stays correlated across frequency), the calibration and the
+sums; the background mean and the calibration reference are shared by every angle and by subject and
+baseline, and are carried as such. The gate term re-gates at ±10 % span and ± one range cell; the
+reference-dimension and range terms use the manifest's tolerances (rectangular distributions). The floor's
+noise power is subtracted from every sum before the band average (E|s + n|<sup>2</sup> = |s|<sup>2</sup> + N).
+The floor is estimated from the background measurements; it does not see the interaction between target
+and support, so it is a lower estimate of the true floor and the noise terms are lower estimates too. In a
+reduction the calibration largely cancels (the budget keeps what is left); absolute RCS also carries the
+reference's own accuracy, seldom better than about 0.5 dB in practice (Knott, <i>Radar Cross Section
+Measurements</i>).</p>
+<p>A point is floor-limited when it may be less than {margin:g} dB above the floor; its reduction is then a
+bound that holds with probability {100 * metrics.BOUND_PROBABILITY:.0f} %: "at least X dB" when the
+cloaked subject is at the floor (lower bound), "at most X dB" when the baseline is (upper bound),
+"undetermined" when both are. A band or sector metric becomes a bound when its noise-corrected sum is not
+clear of the floor at k standard uncertainties.</p>
+</div>"""]
+    for i, m in enumerate(result.metrics):
+        budget = m.get("uncertainty_budget") or {}
+        for metric in ("band_reduction_db", "best_reduction_db"):
+            b = budget.get(metric)
+            if not b:
+                continue
+            value = m.get(metric)
+            lo, hi = m.get("band_hz") or [None, None]
+            where = f"{lo / 1e9:.4g}-{hi / 1e9:.4g} GHz, {m.get('sector_contents') or 'all angles'}" if lo else ""
+            caption = (f"{uncertainty.METRIC_LABELS[metric]}: {m['subject']} against {m['baseline']}, "
+                       f"{m['polarization']}{', ' + where if where else ''}: "
+                       f"{_fmt(value, 2)} ± {b['expanded_u_db']:.2f} dB (k = {b['coverage_k']:g})")
+            rows = "".join("<tr>" + "".join(f"<td>{_esc(c)}</td>" for c in r) + "</tr>"
+                           for r in uncertainty.budget_rows(b))
+            head = "".join(f"<th>{_esc(h)}</th>" for h in uncertainty.BUDGET_HEADER)
+            parts.append(f'<div class="scroll"><table class="data budget" id="budget-{i}-{metric}"><caption>{_esc(caption)}</caption>'
+                         f"<thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table></div>")
+    return "".join(parts)
 
 
 RF_CAUTION = """<div id="rf-caution" class="caution">
@@ -453,6 +472,8 @@ thead th { background: var(--band); font-weight: 600; border-bottom: 1px solid #
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 .scroll { overflow-x: auto; }
 table.summary { font-size: 0.84em; }
+table.budget caption { text-align: left; font-weight: 600; padding: 4px 0; }
+table.budget td:nth-child(3) { text-align: right; font-variant-numeric: tabular-nums; }
 table.summary td.text:last-child { min-width: 11em; }
 td.fail { color: var(--warn); font-weight: 600; }
 table.kv th { font-weight: 500; color: var(--muted); width: 13em; }

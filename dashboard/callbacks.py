@@ -20,6 +20,7 @@ from dash import Input, Output, State, html, no_update
 from dash.exceptions import PreventUpdate
 
 from .. import figures as F
+from .. import uncertainty
 from ..errors import InputError
 from ..process import ProcessSettings, check_failure_text, process_campaign
 
@@ -399,8 +400,10 @@ class Views:
         if m["bound"] == "undetermined":
             band_text = "undetermined: the cloaked target and its baseline are both at the floor"
         else:
-            band_text = (f"{m['band_reduction_db']:.2f} ± {m['band_reduction_uncertainty_db']:.2f} dB "
-                         "(expanded, k = 2; linear sum over band and sector, then dB)")
+            k = (m.get("uncertainty_budget") or {}).get("band_reduction_db", {}).get("coverage_k",
+                                                                                  r.settings.get("coverage_k", 2))
+            band_text = (f"{m['band_reduction_db']:.2f} ± {_fmt(m['band_reduction_uncertainty_db'], '.2f')} dB "
+                         f"(expanded, k = {k:g}; noise-corrected linear sums over band and sector, then dB)")
         stats = m.get("sector_reduction_db") or {}
         band_hz = r.settings.get("reporting_band_hz")
         facts = [
@@ -426,8 +429,16 @@ class Views:
         ]
         alarms = [check_failure_text(c) for c in r.checks if not c["passed"] and c["polarization"] == pol]
         alarms += [m["gate_mismatch"]] if m.get("gate_mismatch") else []
-        return curve, fmap, html.Div([check_alarm(alarms),
-                                      _table(facts, [f"{subject} against {m['baseline']}, {pol}", ""], "tbl facts")])
+        budget = (m.get("uncertainty_budget") or {}).get("band_reduction_db")
+        budget_box = html.Div(
+            [html.H4("Uncertainty budget of the band-averaged reduction"),
+             _table(uncertainty.budget_rows(budget), uncertainty.BUDGET_HEADER, "tbl budget")],
+            id="red-budget") if budget else html.Div("No uncertainty budget: this run was processed before budgets "
+                                                     "were made; process it again to see one.", id="red-budget",
+                                                     className="note")
+        return curve, fmap, html.Div([check_alarm(alarms), html.Div(
+            [_table(facts, [f"{subject} against {m['baseline']}, {pol}", ""], "tbl facts"), budget_box],
+            className="red-facts")])
 
     # ------------------------------------------------------------------ revisions
     def revisions(self, run_id, metric):

@@ -113,6 +113,11 @@ def test_reduction_view_marks_bounds_and_band_average(views, sample):
     if limited:
         assert any(t.name == "floor-limited" for t in fmap.data)
     assert f"{row['band_reduction_db']:.2f} ± {row['band_reduction_uncertainty_db']:.2f} dB" in _text(facts)
+    # the budget beside the number: every component, the combined and the expanded uncertainty (GUM layout)
+    text = _text(facts)
+    for c in row["uncertainty_budget"]["band_reduction_db"]["components"]:
+        assert c["component"] in text
+    assert "expanded uncertainty (k = 2)" in text
 
 
 def test_campaign_summary_lists_targets_and_check(views, sample):

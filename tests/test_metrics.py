@@ -64,7 +64,8 @@ def test_bounds():
     assert metrics.aggregate_bound(s, b) == "undetermined"
     assert metrics.aggregate_bound(s[3:], b[3:]) == "none"
     sig, lim = metrics.bounded_sigma(np.array([1e-6, 1.0]), np.array([1e-6, 1e-6]), 10.0)
-    np.testing.assert_allclose(sig, [1e-5, 1.0])
+    # a floor-limited point takes its upper limit (|m| + z sqrt(N / 2))^2, z the 95 % normal quantile
+    np.testing.assert_allclose(sig, [(1e-3 + 1.6448536269514722 * np.sqrt(0.5e-6)) ** 2, 1.0])
     assert list(lim) == [True, False]
 
 

@@ -163,8 +163,8 @@ def test_provenance_lists_every_file_hash(soup, summary, run_dir):
 
 def test_uncertainty_statement_and_rf_caution(soup):
     unc = " ".join(soup.find(id="uncertainty-statement").get_text(" ").split())
-    for needle in ("JCGM 100:2008", "k = 2", "fully correlated", "lower estimate", "0.5 dB", "Knott",
-                   "at least", "at most", "undetermined"):
+    for needle in ("JCGM 100:2008", "k = 2", "correlated", "lower estimate", "0.5 dB", "Knott",
+                   "at least", "at most", "undetermined", "95 %"):
         assert needle in unc, needle
     caution = " ".join(soup.find(id="rf-caution").get_text(" ").split())
     for needle in ("power amplifiers", "high-gain horns", "S = P G / (4 π r", "local regulations",

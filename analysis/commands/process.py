@@ -14,6 +14,9 @@ def add_processing_options(p) -> None:
     p.add_argument("--floor-margin-db", type=float, default=10.0,
                    help="points less than this above the floor are floor-limited (dB)")
     p.add_argument("--check-tolerance-db", type=float, default=1.0, help="check-target tolerance (dB)")
+    p.add_argument("--coverage-k", type=float, default=2.0,
+                   help="coverage factor of every expanded uncertainty (default 2: about 95 %% for a normal "
+                        "distribution)")
     p.add_argument("--sector-deg", help="angular sector START:STOP in degrees, wrapped to (-180, 180]")
     p.add_argument("--band-ghz", help="reporting band START:STOP in GHz (default: the manifest's [band])")
     p.add_argument("--trim-ghz", type=float, help="band-edge trim after gating (default: c0/(2 span))")
@@ -45,7 +48,7 @@ def register(sub) -> None:
 # range of every numeric option: (lowest, highest, unit), both ends allowed; NaN and infinities never
 OPTION_RANGES = {
     "threshold_db": (-100.0, 100.0, "dB"), "floor_margin_db": (0.0, 100.0, "dB"),
-    "check_tolerance_db": (0.0, 100.0, "dB"), "trim_ghz": (0.0, 1e4, "GHz"), "kaiser_beta": (0.0, 50.0, ""),
+    "check_tolerance_db": (0.0, 100.0, "dB"), "coverage_k": (0.1, 10.0, ""), "trim_ghz": (0.0, 1e4, "GHz"), "kaiser_beta": (0.0, 50.0, ""),
     "band_ghz": (1e-9, 1e4, "GHz"), "sector_deg": (-360.0, 360.0, "deg"),
 }
 
@@ -75,7 +78,7 @@ def settings_from_args(args):
             raise InputError(f"--band-ghz {args.band_ghz!r}: START must be below STOP (the band is START:STOP in GHz)")
         bounded_option("band_ghz", (lo, hi))
         band = (lo * 1e9, hi * 1e9)
-    for name in ("threshold_db", "floor_margin_db", "check_tolerance_db", "trim_ghz", "kaiser_beta"):
+    for name in ("threshold_db", "floor_margin_db", "check_tolerance_db", "trim_ghz", "kaiser_beta", "coverage_k"):
         bounded_option(name, getattr(args, name))
     try:
         pct = tuple(float(x) for x in str(args.percentiles).split(",") if x.strip())
@@ -90,7 +93,7 @@ def settings_from_args(args):
         sector_deg=bounded_option("sector_deg", parse_sector(args.sector_deg)) if args.sector_deg else None,
         auto_gate=args.auto_gate, align_angles=args.align_angles, drift_correction=args.drift_correction,
         trim_hz=None if args.trim_ghz is None else args.trim_ghz * 1e9, band_hz=band,
-        window=args.window, kaiser_beta=args.kaiser_beta)
+        window=args.window, kaiser_beta=args.kaiser_beta, coverage_k=args.coverage_k)
 
 
 def run(args) -> int:
