@@ -28,7 +28,9 @@ DRIFT_LEVEL_DB = 20.0  # drift fit uses profile bins outside the gate within thi
 def mean_over_repeats(sweeps: np.ndarray, axis: int = -2) -> tuple[np.ndarray, np.ndarray, int]:
     """(complex mean over the repeat axis, variance of that mean per point, repeat count).
 
-    The variance of the mean is sum |x - mean|^2 / (N (N - 1)); zero for a single sweep.
+    The variance of the mean is sum |x - mean|^2 / (N (N - 1)), in the sweeps' units squared;
+    zero for a single sweep. It holds phase drift too: the uncertainty of the power comes
+    from :func:`power_repeatability`.
     """
     n = sweeps.shape[axis]
     mean = sweeps.mean(axis=axis)
@@ -37,6 +39,26 @@ def mean_over_repeats(sweeps: np.ndarray, axis: int = -2) -> tuple[np.ndarray, n
     dev = sweeps - np.expand_dims(mean, axis)
     var_mean = np.sum(np.abs(dev) ** 2, axis=axis) / (n * (n - 1))
     return mean, var_mean, n
+
+
+def power_repeatability(gated: np.ndarray, axis: int = -2) -> np.ndarray:
+    """Relative standard uncertainty (dimensionless, 1-sigma) of the power |mean|^2 of repeated
+    gated sweeps (..., repeat, ..., nf), from their spread along ``axis``; zero for one sweep.
+
+    To first order a repeat's power differs from the mean's by 2 |mean| times the component of
+    its deviation along the mean's phase, p_r = Re(conj(mean) dev_r) / |mean|; a deviation at
+    right angles to the mean (pure phase drift between repeats) leaves the power unchanged. So
+    u_rel = 2 sqrt(sum_r p_r^2 / (N (N - 1))) / |mean|: the experimental standard deviation of
+    the mean of the repeats' powers (JCGM 100:2008, 4.2.3), relative to the mean power.
+    """
+    n = gated.shape[axis]
+    mean = gated.mean(axis=axis, keepdims=True)
+    mag = np.maximum(np.abs(mean), 1e-300)
+    if n < 2:
+        return np.zeros(np.squeeze(mag, axis=axis).shape)
+    along = np.real(np.conj(mean) * (gated - mean)) / mag
+    u = 2 * np.sqrt(np.sum(along ** 2, axis=axis, keepdims=True) / (n * (n - 1))) / mag
+    return np.squeeze(u, axis=axis)
 
 
 def background_at_angles(bg_mean: np.ndarray, bg_angles, target_angles) -> np.ndarray:

@@ -401,7 +401,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         floor = np.abs(k[:, 0, :]) ** 2 * spec.range_m ** 4 * g["noise"]
         rep = None
         if g["var"] is not None:
-            rep = 2 * np.sqrt(g["var"]) / np.maximum(np.abs(g["g"]), 1e-300)
+            rep = _power_repeatability(campaign, settings, gate, g)
         coords = {"polarization": cube.polarizations, "angle": cube.angles_deg, "frequency": f}
         targets[name] = TargetResult(
             name=name, role=spec.role, revision=spec.revision or name, baseline=spec.baseline,
@@ -595,6 +595,16 @@ def _centring_warning(spec: TargetSpec, pol: str, f, centring: dict, warnings: l
         warnings.append(f"{spec.name} {pol}: centring check: the reference is {where} off the turntable axis (from "
                         f"its echo delay per angle); its sweeps were aligned before averaging (a plain average would "
                         f"lose {loss:.2f} dB at {f[-1] / 1e9:.4g} GHz); recentre it for the next campaign")
+
+
+def _power_repeatability(campaign: Campaign, settings: ProcessSettings, gate: dict, g: dict) -> np.ndarray:
+    """Relative standard uncertainty (1-sigma, of sigma) from a target's repeats (pol, angle, f):
+    :func:`calibrate.power_repeatability` of its gated, background-subtracted repeats, gated again
+    here from the same sweeps (the gated mean is kept, not the repeats). The calibration factor
+    multiplies every repeat alike, so the relative uncertainty of the gated power is that of sigma."""
+    d, _ = _subtracted(campaign, g["cube"], settings, gate, g["center"], g["span"])
+    gated = timedomain.time_gate(campaign.frequency_hz, d, g["center"], g["span"], **gate)
+    return calibrate.power_repeatability(gated, axis=2)
 
 
 def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, settings: ProcessSettings) -> list[dict]:
