@@ -213,8 +213,11 @@ def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_be
     segments = np.array_split(np.arange(power.shape[1]), n_segments)
     medians = np.stack([np.median(power[:, seg, :].reshape(power.shape[0], -1), axis=-1) for seg in segments])
     # segments whose median is within three standard errors of the quietest one hold noise too:
-    # the median of n exponential samples has relative standard error 1 / (ln 2 sqrt(n))
-    n_seg = min(len(seg) for seg in segments) * power.shape[2]
+    # the median of n independent exponential samples has relative standard error
+    # 1 / (ln 2 sqrt(n)); neighbouring bins of a windowed profile are correlated, so n counts
+    # bins over the window's equivalent noise bandwidth N sum(w^2) / sum(w)^2 (in bins)
+    enbw = w.size * np.sum(w ** 2) / w.sum() ** 2
+    n_seg = min(len(seg) for seg in segments) * power.shape[2] / enbw
     quiet = medians <= medians.min(axis=0) * (1 + 3 / (np.log(2) * np.sqrt(n_seg)))
     per_bin = np.array([np.median(power[i][np.concatenate([seg for seg, q in zip(segments, quiet[:, i]) if q])])
                         for i in range(power.shape[0])]) / np.log(2)

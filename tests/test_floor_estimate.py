@@ -45,12 +45,15 @@ def test_noise_variance_without_repeats_within_1_db():
     assert 10 * np.log10(all_bins / SIGMA_N ** 2) > 3.0
 
 
-def test_noise_variance_of_pure_noise_single_sweep():
-    # one short sweep of noise alone: few samples per segment, still within 1.5 dB
-    rng = np.random.default_rng(5)
-    x = SIGMA_N / np.sqrt(2) * (rng.standard_normal((1, 1, F.size)) + 1j * rng.standard_normal((1, 1, F.size)))
-    var = calibrate.noise_variance_from_profile(F, x)
-    assert 10 * np.log10(var[0] / SIGMA_N ** 2) == pytest.approx(0.0, abs=1.5)
+def test_noise_variance_of_pure_noise_single_sweeps_unbiased():
+    # one short sweep of noise alone: few samples per segment, so one estimate scatters by
+    # a dB or more; over 60 seeded sweeps the median estimate is within 0.5 dB of the truth
+    est = []
+    for seed in range(60):
+        rng = np.random.default_rng(1000 + seed)
+        x = SIGMA_N / np.sqrt(2) * (rng.standard_normal((1, 1, F.size)) + 1j * rng.standard_normal((1, 1, F.size)))
+        est.append(10 * np.log10(calibrate.noise_variance_from_profile(F, x)[0] / SIGMA_N ** 2))
+    assert np.median(est) == pytest.approx(0.0, abs=0.5)
 
 
 def test_gated_floor_with_repeats_exact_at_valid_band_edges():
@@ -58,7 +61,7 @@ def test_gated_floor_with_repeats_exact_at_valid_band_edges():
     # out with power s^2 sum_n w_n^2 |G[k - n]|^2 / |distortion|^2 per frequency)
     exact = SIGMA_N ** 2 * timedomain.gate_noise_gain(F, CENTER, SPAN)
     valid = np.flatnonzero(timedomain.valid_band_mask(F, SPAN))
-    power, how = calibrate.gated_noise_power(F, _sweeps(7, 4), CENTER, SPAN)
+    power, how = calibrate.gated_noise_power(F, _sweeps(7, 6, angles=72), CENTER, SPAN)
     assert "repeated" in how
     err = 10 * np.log10(power[0] / exact)
     for i in (valid[0], valid[1], valid[-2], valid[-1]):
