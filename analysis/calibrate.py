@@ -201,8 +201,9 @@ def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_be
     distributed, so its mean is median / ln 2 (the exponential distribution's median is
     ln 2 times its mean); a bin of the window-normalised profile holds s^2 sum(w^2) / sum(w)^2 of
     the per-point variance s^2. Still rough: it is biased high where sidelobes reach every segment
-    (an echo more than about 80 dB above the noise per point), and it leans slightly low when the
-    segments hold few samples (one short sweep).
+    (an echo more than about 80 dB above the noise per point), and with few samples per segment
+    (one short sweep) a single estimate can come out a few dB low (its median over many sweeps
+    is within a few tenths of a dB).
     """
     w = timedomain.frequency_window(window, sweeps.shape[-1], kaiser_beta)
     # unpadded profile bins hold sum(w s e^(..)) / sum(w)
