@@ -20,13 +20,17 @@ from . import timedomain
 from .constants import C0
 
 FLOOR_SMOOTHING_CELLS = 5  # floor averaged over a frequency window this many inverse gate durations wide
+NOISE_SEGMENTS = 16  # the no-repeat noise estimate splits the range profile into up to this many segments
+NOISE_SEGMENT_SAMPLES = 100  # ... each holding at least this many samples (bins x sweeps)
 DRIFT_LEVEL_DB = 20.0  # drift fit uses profile bins outside the gate within this many dB of their peak
 
 
 def mean_over_repeats(sweeps: np.ndarray, axis: int = -2) -> tuple[np.ndarray, np.ndarray, int]:
     """(complex mean over the repeat axis, variance of that mean per point, repeat count).
 
-    The variance of the mean is sum |x - mean|^2 / (N (N - 1)); zero for a single sweep.
+    The variance of the mean is sum |x - mean|^2 / (N (N - 1)), in the sweeps' units squared;
+    zero for a single sweep. It holds phase drift too: the uncertainty of the power comes
+    from :func:`power_repeatability`.
     """
     n = sweeps.shape[axis]
     mean = sweeps.mean(axis=axis)
@@ -35,6 +39,26 @@ def mean_over_repeats(sweeps: np.ndarray, axis: int = -2) -> tuple[np.ndarray, n
     dev = sweeps - np.expand_dims(mean, axis)
     var_mean = np.sum(np.abs(dev) ** 2, axis=axis) / (n * (n - 1))
     return mean, var_mean, n
+
+
+def power_repeatability(gated: np.ndarray, axis: int = -2) -> np.ndarray:
+    """Relative standard uncertainty (dimensionless, 1-sigma) of the power |mean|^2 of repeated
+    gated sweeps (..., repeat, ..., nf), from their spread along ``axis``; zero for one sweep.
+
+    To first order a repeat's power differs from the mean's by 2 |mean| times the component of
+    its deviation along the mean's phase, p_r = Re(conj(mean) dev_r) / |mean|; a deviation at
+    right angles to the mean (pure phase drift between repeats) leaves the power unchanged. So
+    u_rel = 2 sqrt(sum_r p_r^2 / (N (N - 1))) / |mean|: the experimental standard deviation of
+    the mean of the repeats' powers (JCGM 100:2008, 4.2.3), relative to the mean power.
+    """
+    n = gated.shape[axis]
+    mean = gated.mean(axis=axis, keepdims=True)
+    mag = np.maximum(np.abs(mean), 1e-300)
+    if n < 2:
+        return np.zeros(np.squeeze(mag, axis=axis).shape)
+    along = np.real(np.conj(mean) * (gated - mean)) / mag
+    u = 2 * np.sqrt(np.sum(along ** 2, axis=axis, keepdims=True) / (n * (n - 1))) / mag
+    return np.squeeze(u, axis=axis)
 
 
 def background_at_angles(bg_mean: np.ndarray, bg_angles, target_angles) -> np.ndarray:
@@ -165,17 +189,39 @@ def off_axis_distance_m(angles_deg, shifts_m) -> float | None:
 
 
 def noise_variance_from_profile(frequency_hz, sweeps, window="kaiser", kaiser_beta=6.0) -> np.ndarray:
-    """Per-point noise variance (pol,) of sweeps (pol, ..., nf) without repeats: a rough estimate.
+    """Per-point noise variance (pol,) of sweeps (pol, ..., nf) without repeats, in the sweeps' units
+    squared (|S|^2 per frequency point): a rough estimate.
 
-    The median of |profile|^2 over all range bins, sweeps and angles (echoes occupy few bins) is
-    ln 2 times the noise power per bin of complex Gaussian noise; a bin of the window-normalised
-    profile holds s^2 sum(w^2) / sum(w)^2 of it.
+    The unpadded range profile's bins are split into up to NOISE_SEGMENTS contiguous segments
+    (each with at least NOISE_SEGMENT_SAMPLES bins x sweeps); each
+    segment's median of |profile|^2 over its bins, sweeps and angles is taken, and the quietest
+    segment, with every segment whose median lies within three standard errors of it, gives the
+    median: there only noise lives (coupling near range 0, the echoes and their window sidelobes
+    raise the others). Complex Gaussian noise power per bin is exponentially
+    distributed, so its mean is median / ln 2 (the exponential distribution's median is
+    ln 2 times its mean); a bin of the window-normalised profile holds s^2 sum(w^2) / sum(w)^2 of
+    the per-point variance s^2. Still rough: it is biased high where sidelobes reach every segment
+    (an echo more than about 80 dB above the noise per point), and with few samples per segment
+    (one short sweep) a single estimate can come out a few dB low (its median over many sweeps
+    is within a few tenths of a dB).
     """
     w = timedomain.frequency_window(window, sweeps.shape[-1], kaiser_beta)
     # unpadded profile bins hold sum(w s e^(..)) / sum(w)
     _, p = timedomain.range_profile(frequency_hz, sweeps, window, kaiser_beta, pad_factor=1)
-    power = np.abs(p.reshape(p.shape[0], -1)) ** 2
-    per_bin = np.median(power, axis=-1) / np.log(2)
+    power = np.abs(p) ** 2
+    power = np.moveaxis(power, -1, 1).reshape(power.shape[0], power.shape[-1], -1)  # (pol, bin, sweep)
+    n_segments = max(1, min(NOISE_SEGMENTS, power.shape[1] * power.shape[2] // NOISE_SEGMENT_SAMPLES, power.shape[1]))
+    segments = np.array_split(np.arange(power.shape[1]), n_segments)
+    medians = np.stack([np.median(power[:, seg, :].reshape(power.shape[0], -1), axis=-1) for seg in segments])
+    # segments whose median is within three standard errors of the quietest one hold noise too:
+    # the median of n independent exponential samples has relative standard error
+    # 1 / (ln 2 sqrt(n)); neighbouring bins of a windowed profile are correlated, so n counts
+    # bins over the window's equivalent noise bandwidth N sum(w^2) / sum(w)^2 (in bins)
+    enbw = w.size * np.sum(w ** 2) / w.sum() ** 2
+    n_seg = min(len(seg) for seg in segments) * power.shape[2] / enbw
+    quiet = medians <= medians.min(axis=0) * (1 + 3 / (np.log(2) * np.sqrt(n_seg)))
+    per_bin = np.array([np.median(power[i][np.concatenate([seg for seg, q in zip(segments, quiet[:, i]) if q])])
+                        for i in range(power.shape[0])]) / np.log(2)
     return per_bin * w.sum() ** 2 / np.sum(w ** 2)
 
 
@@ -196,16 +242,22 @@ def moving_average(x: np.ndarray, width: int) -> np.ndarray:
 
 
 def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tuple[np.ndarray, str]:
-    """Per-sweep gated noise power (pol, nf) seen in one sweep, and how it was estimated.
+    """Per-sweep gated noise power (pol, nf) seen in one sweep, in the sweeps' units squared, and how
+    it was estimated.
 
     With repeated background sweeps (pol, angle, repeat, nf): the gated deviations from their
     mean, sum |g(B_r) - g(B_mean)|^2 / (N - 1), averaged over angles (the chamber floor does not
     depend on the turntable angle). Without repeats: the noise variance from the profile
-    (:func:`noise_variance_from_profile`) times :func:`timedomain.gate_noise_gain`. Smoothed over a frequency
-    window FLOOR_SMOOTHING_CELLS inverse gate durations wide.
+    (:func:`noise_variance_from_profile`) times :func:`timedomain.gate_noise_gain`. Smoothed over a
+    frequency window FLOOR_SMOOTHING_CELLS inverse gate durations wide, after dividing by the gate's
+    noise gain (which rises towards the band edges, where the gate's normalisation divides by a
+    falling response): the smoothed quantity is then flat for white noise, and the gain is
+    multiplied back, so the average does not spill the edges' rise into the band (a bias of
+    several dB at the valid band's edges otherwise).
     """
     f = np.asarray(frequency_hz)
     n_rep = bg_sweeps.shape[2]
+    gain = timedomain.gate_noise_gain(f, center_m, span_m, **gate)
     if n_rep >= 2:
         gated = timedomain.time_gate(f, bg_sweeps, center_m, span_m, **gate)
         dev = gated - gated.mean(axis=2, keepdims=True)
@@ -215,9 +267,9 @@ def gated_noise_power(frequency_hz, bg_sweeps, center_m, span_m, **gate) -> tupl
     else:
         var = noise_variance_from_profile(f, bg_sweeps[:, :, 0, :], gate.get("window", "kaiser"),
                                           gate.get("kaiser_beta", 6.0))
-        power = var[:, None] * timedomain.gate_noise_gain(f, center_m, span_m, **gate)[None, :]
+        power = var[:, None] * gain[None, :]
         how = "gated noise estimated from the background's range profile (no repeats: rough)"
     cell_hz = C0 / (2 * span_m)
     width = max(1, int(round(FLOOR_SMOOTHING_CELLS * cell_hz / (f[1] - f[0]))))
-    power = moving_average(power, min(width, power.shape[-1]))
+    power = moving_average(power / gain, min(width, power.shape[-1])) * gain
     return power, how

@@ -251,6 +251,22 @@ def interference_uncertainty_db(snr_db):
     return 8.685889638 * 10 ** (-np.asarray(snr_db) / 20) / np.sqrt(2)
 
 
+def power_uncertainty_db(sigma, floor, rep_rel_u=None) -> np.ndarray:
+    """Standard uncertainty (dB, 1-sigma) of measured powers sigma (m^2) over a noise floor (m^2).
+
+    The floor's interference term, :func:`interference_uncertainty_db` at SNR = sigma / floor
+    (8.686 sqrt(floor / sigma) / sqrt(2) dB), combined in quadrature with the repeatability
+    ``rep_rel_u`` (relative standard uncertainty of power, dimensionless; 10 / ln 10 = 4.343 dB
+    per unit, first order) when given. Arrays broadcast.
+    """
+    sigma = np.maximum(np.asarray(sigma, float), 1e-300)
+    floor = np.maximum(np.asarray(floor, float), 1e-300)
+    u = interference_uncertainty_db(10 * np.log10(sigma / floor))
+    if rep_rel_u is not None:
+        u = np.sqrt(u ** 2 + (10 / np.log(10) * np.asarray(rep_rel_u, float)) ** 2)
+    return u
+
+
 def interference_bounds_db(snr_db) -> tuple[np.ndarray, np.ndarray]:
     """Worst-case interference error (+, -) dB: 20 log10(1 +/- 10^(-SNR/20))."""
     x = 10 ** (-np.asarray(snr_db, float) / 20)

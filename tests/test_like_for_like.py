@@ -162,7 +162,8 @@ def test_failed_check_target_is_prominent(tiny_campaign, tmp_path, capsys):
     _add_check_target(tiny_campaign, 0.5)  # 14 dB above the sphere it claims to be
     status, out, err = run_cli(capsys, "process", tiny_campaign, "--out", tmp_path / "o", "--no-store")
     assert status == 0  # as documented: only --strict changes the exit status
-    assert "*** CHECK TARGET FAILED: check HH: max error 13.98 dB > tolerance 1 dB" in err
+    assert "*** CHECK TARGET FAILED: check HH: error 13.98 dB > tolerance 1 dB + expanded uncertainty" in err
+    assert "max error 13.98 dB: the calibration or the gate is suspect ***" in err
     assert err.rstrip().splitlines()[-1].startswith("(exit status 0: use --strict")
     summary = json.loads((tmp_path / "o" / "summary.json").read_text())
     assert summary["check_failed"] is True and summary["failed_checks"] == ["check HH", "check VV"]
