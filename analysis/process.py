@@ -388,9 +388,12 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         if d.shape[2] > 1:
             g_all = timedomain.time_gate(f, d, center, span, **gate)
             g_mean, var_mean, n_rep = calibrate.mean_over_repeats(g_all, axis=2)
+            # relative standard uncertainty of power from the repeats: the calibration factor multiplies every
+            # repeat alike, so that of the gated power is that of sigma
+            rep_u = calibrate.power_repeatability(g_all, axis=2)
         else:
             g_mean = timedomain.time_gate(f, d[:, :, 0, :], center, span, **gate)
-            var_mean, n_rep = None, 1
+            var_mean, n_rep, rep_u = None, 1, None
         if bg is None:  # the floor from the target's own sweeps: their repeats, else their range profile
             noise, how = calibrate.gated_noise_power(f, cube.data.values, center, span, **gate)
             how = f"no background: {how.replace('background', 'target')}"
@@ -404,7 +407,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
             resid = noise * (1.0 / n_rep + 1.0 / bg.n_repeats)
         clutter = None if bg_at is None else timedomain.time_gate(f, bg_at.mean(axis=2), center, span, **gate)
         gated[name] = {"cube": cube, "g": g_mean, "var": var_mean, "noise": resid, "floor_method": how,
-                       "center": center, "span": span, "noise_sweep": noise, "n_rep": n_rep, "bg": bg,
+                       "center": center, "span": span, "noise_sweep": noise, "rep_u": rep_u, "n_rep": n_rep, "bg": bg,
                        "clutter": clutter}
         tick(f"gate {name}")
 
@@ -423,9 +426,7 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
         k = np.stack([factors[p] for p in cube.polarizations])[:, None, :]
         amp = calibrate.calibrated_amplitude(f, k, g["g"], spec.range_m)
         floor = np.abs(k[:, 0, :]) ** 2 * spec.range_m ** 4 * g["noise"]
-        rep = None
-        if g["var"] is not None:
-            rep = _power_repeatability(campaign, settings, gate, g)
+        rep = g["rep_u"]
         coords = {"polarization": cube.polarizations, "angle": cube.angles_deg, "frequency": f}
         targets[name] = TargetResult(
             name=name, role=spec.role, revision=spec.revision or name, baseline=spec.baseline,
@@ -734,16 +735,6 @@ def _centring_warning(spec: TargetSpec, pol: str, f, centring: dict, warnings: l
         warnings.append(f"{spec.name} {pol}: centring check: the reference is {where} off the turntable axis (from "
                         f"its echo delay per angle); its sweeps were aligned before averaging (a plain average would "
                         f"lose {loss:.2f} dB at {f[-1] / 1e9:.4g} GHz); recentre it for the next campaign")
-
-
-def _power_repeatability(campaign: Campaign, settings: ProcessSettings, gate: dict, g: dict) -> np.ndarray:
-    """Relative standard uncertainty (1-sigma, of sigma) from a target's repeats (pol, angle, f):
-    :func:`calibrate.power_repeatability` of its gated, background-subtracted repeats, gated again
-    here from the same sweeps (the gated mean is kept, not the repeats). The calibration factor
-    multiplies every repeat alike, so the relative uncertainty of the gated power is that of sigma."""
-    d, _ = _subtracted(campaign, g["cube"], settings, gate, g["center"], g["span"])
-    gated = timedomain.time_gate(campaign.frequency_hz, d, g["center"], g["span"], **gate)
-    return calibrate.power_repeatability(gated, axis=2)
 
 
 def _checks(campaign: Campaign, targets: dict[str, TargetResult], valid, settings: ProcessSettings) -> list[dict]:
