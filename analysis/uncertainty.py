@@ -188,13 +188,45 @@ class NoisePropagation:
     def __init__(self, model: "ChainModel"):
         self.model = model
         self._g: dict[tuple, np.ndarray] = {}
+        self._g2: dict[tuple, np.ndarray] = {}
+        self._cross: dict[tuple, np.ndarray] = {}
+
+    def gate_key(self, name: str) -> tuple:
+        t = self.model.targets[name]
+        return (t.center_m, t.span_m)
 
     def gmat(self, name: str) -> np.ndarray:
-        t = self.model.targets[name]
-        key = (t.center_m, t.span_m)
+        key = self.gate_key(name)
         if key not in self._g:
+            t = self.model.targets[name]
             self._g[key] = gate_matrix(self.model.frequency_hz, t.center_m, t.span_m, self.model.gate)
         return self._g[key]
+
+    def gated_power(self, name: str, s2: np.ndarray) -> np.ndarray:
+        """sum_f' |G[f, f']|^2 s2(f'): the gated noise power per frequency of white-ish noise s2."""
+        key = self.gate_key(name)
+        if key not in self._g2:
+            self._g2[key] = np.abs(self.gmat(name)) ** 2
+        return self._g2[key] @ s2
+
+    def cross_power(self, kx: tuple, ky: tuple, s2: np.ndarray, tag) -> np.ndarray:
+        """sum_f' G_x[f, f'] conj(G_y[f, f']) s2(f') for two gates (one shared noise draw)."""
+        key = (kx, ky, tag)
+        if key not in self._cross:
+            self._cross[key] = (self._g[kx] * np.conj(self._g[ky])) @ s2 if kx != ky else self._g2_of(kx) @ s2
+        return self._cross[key]
+
+    def _g2_of(self, key: tuple) -> np.ndarray:
+        if key not in self._g2:
+            self._g2[key] = np.abs(self._g[key]) ** 2
+        return self._g2[key]
+
+    @staticmethod
+    def _apply(v: np.ndarray, G: np.ndarray) -> np.ndarray:
+        """v @ G over the rows and columns of v that are not zero (the sector's angles, the band)."""
+        rows = np.flatnonzero(np.any(v != 0, axis=1))
+        cols = np.flatnonzero(np.any(v != 0, axis=0))
+        return v[np.ix_(rows, cols)] @ G[cols, :]
 
     def _deriv(self, name: str, ip: int) -> np.ndarray:
         """dA/dg (nf,) of a target: K R^2 exp(+j 2 k R)."""
@@ -253,14 +285,15 @@ class NoisePropagation:
         var_band = 0.0
         var_curve = 0.0
         bg_h: dict[str, np.ndarray] = {}
-        bg_curve: dict[str, list] = {}
+        bg_curve: dict[str, dict] = {}
+        bg_pol: dict[str, int] = {}
         for p in parts:
             t = m.targets[p.name]
             G = self.gmat(p.name)
             s2 = m.noise_std[p.name][p.ip] ** 2 / t.n_rep
-            h = p.v @ G  # coefficient of each raw noise sample
+            h = self._apply(p.v, G)  # coefficient of each raw noise sample
             var_band += np.sum(np.abs(h) ** 2 * s2)
-            pw = (np.abs(G) ** 2) @ s2  # gated noise power of the mean per frequency
+            pw = self.gated_power(p.name, s2)  # gated noise power of the mean per frequency
             var_curve = var_curve + np.sum(np.abs(p.v_curve) ** 2, axis=0) * pw
             if t.background is not None:
                 b = m.backgrounds[t.background]
@@ -269,16 +302,19 @@ class NoisePropagation:
                 bg_h[t.background] = bg_h.get(t.background, 0.0) - j @ G
                 jc = np.zeros((b.n_angles, len(m.frequency_hz)), complex)
                 np.add.at(jc, t.bg_index, p.v_curve)
-                bg_curve.setdefault(t.background, []).append((jc, G, b.pols.index(t.pols[p.ip])))
+                per_gate = bg_curve.setdefault(t.background, {})
+                key = self.gate_key(p.name)
+                per_gate[key] = per_gate.get(key, 0.0) + jc  # parts behind one gate share G: add first
+                bg_pol[t.background] = b.pols.index(t.pols[p.ip])
         for name, h in bg_h.items():
             b = m.backgrounds[name]
-            ib = bg_curve[name][0][2]
+            ib = bg_pol[name]
             s2 = b.noise_std[ib] ** 2 / b.n_rep
             var_band += np.sum(np.abs(h) ** 2 * s2)
             terms = bg_curve[name]  # R(f0): sum over f' of |sum_x alpha_x(f0) G_x[f0, f']|^2 s2(f')
-            for x, (ax, gx, _) in enumerate(terms):
-                for y, (ay, gy, _) in enumerate(terms):
-                    cxy = (gx * np.conj(gy)) @ s2
+            for kx, ax in terms.items():
+                for ky, ay in terms.items():
+                    cxy = self.cross_power(kx, ky, s2, (name, ib))
                     var_curve = var_curve + np.real(np.sum(ax * np.conj(ay), axis=0) * cxy)
         scale = 2 * DB ** 2  # var(2 Re z) = 2 E|z|^2 for circular complex noise
         second = sum(p.n2_band for p in parts), sum(p.n2_curve for p in parts)
@@ -323,10 +359,9 @@ class NoisePropagation:
         var_n, var_d = np.zeros(len(f)), np.zeros(len(f))
         for name, ip, angles in uses:
             t = m.targets[name]
-            G = self.gmat(name)
             w = 1.0 / (len(uses) * len(angles) * t.g[ip, angles])  # (n_used, nf)
             s2 = m.noise_std[name][ip] ** 2 / t.n_rep
-            var_n += np.sum(np.abs(w) ** 2, axis=0) * ((np.abs(G) ** 2) @ s2)
+            var_n += np.sum(np.abs(w) ** 2, axis=0) * self.gated_power(name, s2)
             seen = t.g[ip, angles] + (0.0 if t.clutter is None else t.clutter[ip, angles])
             z = w * seen
             var_d += np.sum(m.drift.var_re * z.real ** 2 + m.drift.var_im * z.imag ** 2, axis=0) / t.n_rep
@@ -335,7 +370,7 @@ class NoisePropagation:
                 a = np.zeros((b.n_angles, len(f)), complex)
                 np.add.at(a, t.bg_index[angles], w)
                 s2b = b.noise_std[b.pols.index(t.pols[ip])] ** 2 / b.n_rep
-                var_n += np.sum(np.abs(a) ** 2, axis=0) * ((np.abs(G) ** 2) @ s2b)
+                var_n += np.sum(np.abs(a) ** 2, axis=0) * self.gated_power(name, s2b)
                 if t.clutter is not None:
                     zb = a * t.clutter[ip, angles].mean(axis=0)
                     var_d += np.sum(m.drift.var_re * zb.real ** 2 + m.drift.var_im * zb.imag ** 2, axis=0) / b.n_rep
