@@ -192,3 +192,27 @@ def test_per_point_bounds_hold_on_the_sample(sample):
                               suffixes=("", "_true"))
     below = rcs.rcs_dbsm_true < rcs.floor_dbsm + r.settings["floor_margin_db"]
     assert below.sum() > 50 and np.mean(rcs.floor_limited[below]) >= metrics.BOUND_PROBABILITY
+
+
+def test_point_and_curve_uncertainties_cover_the_sample_truth(sample):
+    # GUM (JCGM 100:2008) 6.2-6.3 on the sample's noise-free truth: +/- u_rcs_db (k = 2) should hold about
+    # 95 % of the calibrated points clear of the floor, +/- U of R(f) about 95 % of the sector curve
+    from pathlib import Path
+
+    truth = Path(__file__).resolve().parents[1] / "sample_measurements" / "truth"
+    r = process_campaign(sample)
+    rcs = r.rcs_table().merge(pd.read_csv(truth / "rcs.csv"), on=["target", "polarization", "angle_deg", "frequency_hz"],
+                              suffixes=("", "_true"))
+    clear = rcs[~rcs.floor_limited]
+    err = clear.rcs_dbsm - clear.rcs_dbsm_true
+    assert np.mean(np.abs(err) <= clear.u_rcs_db) >= 0.9
+    ratio = np.sqrt(np.mean(err ** 2)) / np.sqrt(np.mean((clear.u_rcs_db / 2) ** 2))
+    assert 0.5 <= ratio <= 2.0, ratio
+    lin = rcs.assign(s=10 ** (rcs.rcs_dbsm_true / 10))
+    for m in r.metrics:
+        f = np.array(m["sector_curve_frequency_hz"])
+        sums = {who: lin[(lin.target == who) & (lin.polarization == m["polarization"])].groupby("frequency_hz").s.sum()
+                for who in (m["subject"], m["baseline"])}
+        curve_true = 10 * np.log10(sums[m["baseline"]].loc[f].values / sums[m["subject"]].loc[f].values)
+        covered = np.abs(np.array(m["sector_curve_db"]) - curve_true) <= np.array(m["sector_curve_uncertainty_db"])
+        assert np.mean(covered) >= 0.85, (m["subject"], m["polarization"], np.mean(covered))
