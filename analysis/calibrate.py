@@ -61,15 +61,19 @@ def power_repeatability(gated: np.ndarray, axis: int = -2) -> np.ndarray:
     return np.squeeze(u, axis=axis)
 
 
-def background_at_angles(bg_mean: np.ndarray, bg_angles, target_angles) -> np.ndarray:
-    """Background (pol, angle, f) at the target's angles: the same angle, or its single sweep."""
-    if bg_mean.shape[1] == 1:
-        return np.repeat(bg_mean, len(target_angles), axis=1)
+def background_angle_index(bg_angles, target_angles) -> np.ndarray:
+    """Index of the background sweep that serves each target angle: the same angle, or its single sweep."""
+    if len(bg_angles) == 1:
+        return np.zeros(len(target_angles), int)
     from .campaign import wrap_angle_deg
 
     keys = {round(float(a), 6): i for i, a in enumerate(wrap_angle_deg(bg_angles))}
-    idx = [keys[round(float(a), 6)] for a in wrap_angle_deg(target_angles)]
-    return bg_mean[:, idx, :]
+    return np.array([keys[round(float(a), 6)] for a in wrap_angle_deg(target_angles)], int)
+
+
+def background_at_angles(bg_mean: np.ndarray, bg_angles, target_angles) -> np.ndarray:
+    """Background (pol, angle, f) at the target's angles: the same angle, or its single sweep."""
+    return bg_mean[:, background_angle_index(bg_angles, target_angles), :]
 
 
 def drift_aligned_background(frequency_hz, target, background, center_m, span_m, window="kaiser",

@@ -501,41 +501,36 @@ def process_campaign(campaign: Campaign, settings: ProcessSettings | None = None
 
 def _uncertainty_budgets(campaign: Campaign, settings: ProcessSettings, gate: dict, gated: dict, factors: dict,
                          ref_use: dict, targets: dict, rows: list[dict], contexts, warnings: list[str]) -> dict:
-    """Attach each metric row's uncertainty budget (README, Uncertainty budget) and return the
+    """Attach each metric row's uncertainty budget (README, The processing chain, step 7) and return the
     per-point terms of u_rcs_db (JSON, kept in the run's settings)."""
     f = campaign.frequency_hz
-    m = campaign.manifest
     repeated = {name: c.data.values for name, c in campaign.cubes.items()
                 if c.spec.role in ("background", "reference") and c.data.shape[2] > 1}
     drift = uncertainty.drift_from_repeats(repeated)
     if not drift.known and contexts:
         warnings.append("uncertainty: no repeated background or reference sweeps, so drift is not in the budget; "
                         "measure them at least twice")
-    model_targets, noise_std, backgrounds = {}, {}, {}
+    model_targets, noise_std = {}, {}
+    bg_noise: dict[str, tuple] = {}  # background -> (its cube, {pol: raw noise std of one sweep})
     for name, g in gated.items():
-        cube = g["cube"]
+        cube, bg = g["cube"], g["bg"]
         gain = timedomain.gate_noise_gain(f, g["center"], g["span"], **gate)
-        std = np.sqrt(g["noise_sweep"] / np.maximum(gain, 1e-300))
-        bg = g["bg"]
-        bg_index = None
-        if bg is not None:
-            keys = {round(float(a), 6): i for i, a in enumerate(wrap_angle_deg(bg.angles_deg))}
-            bg_index = (np.zeros(len(cube.angles_deg), int) if len(bg.angles_deg) == 1 else
-                        np.array([keys[round(float(a), 6)] for a in wrap_angle_deg(cube.angles_deg)]))
-            if bg.name not in backgrounds:
-                backgrounds[bg.name] = uncertainty.BackgroundNoise(
-                    pols=list(cube.polarizations), n_angles=len(bg.angles_deg), n_rep=bg.n_repeats, noise_std=std)
+        noise_std[name] = np.sqrt(g["noise_sweep"] / np.maximum(gain, 1e-300))  # the raw noise behind the floor
+        if bg is not None:  # one chamber noise: a background's sweeps have the noise its targets see
+            per_pol = bg_noise.setdefault(bg.name, (bg, {}))[1]
+            for ip, p in enumerate(cube.polarizations):
+                per_pol.setdefault(p, noise_std[name][ip])
         model_targets[name] = uncertainty.GatedTarget(
             name=name, pols=list(cube.polarizations), g=g["g"], clutter=g["clutter"], n_rep=g["n_rep"],
-            background=None if bg is None else bg.name, bg_index=bg_index, center_m=g["center"], span_m=g["span"],
-            range_m=cube.spec.range_m, factor=np.stack([factors[p] for p in cube.polarizations]))
-        noise_std[name] = std
-    for b in backgrounds.values():  # every target of a background must find its polarizations there
-        pols = sorted({p for t in model_targets.values() if t.background for p in t.pols},
-                      key=POLARIZATION_ORDER.index)
-        if set(pols) - set(b.pols):
-            b.pols = pols
-            b.noise_std = np.broadcast_to(b.noise_std[:1], (len(pols), len(f))).copy()
+            background=None if bg is None else bg.name,
+            bg_index=None if bg is None else calibrate.background_angle_index(bg.angles_deg, cube.angles_deg),
+            center_m=g["center"], span_m=g["span"], range_m=cube.spec.range_m,
+            factor=np.stack([factors[p] for p in cube.polarizations]))
+    backgrounds = {}
+    for name, (bg, per_pol) in bg_noise.items():
+        pols = sorted(per_pol, key=POLARIZATION_ORDER.index)
+        backgrounds[name] = uncertainty.BackgroundNoise(pols=pols, n_angles=len(bg.angles_deg), n_rep=bg.n_repeats,
+                                                        noise_std=np.stack([per_pol[p] for p in pols]))
     model = uncertainty.ChainModel(frequency_hz=f, gate=gate, targets=model_targets, noise_std=noise_std,
                                    backgrounds=backgrounds, reference_use=ref_use, drift=drift)
 

@@ -3,7 +3,7 @@
 A budget is a list of named components, each with its type (A: evaluated from the data; B: from a
 stated assumption), its standard uncertainty in dB, the number of samples behind a type-A estimate
 and a one-line note; the combined standard uncertainty is their root sum of squares (the components
-are independent), the expanded uncertainty is ``coverage_k`` times it (README, Uncertainty budget).
+are independent), the expanded uncertainty is ``coverage_k`` times it (README, The processing chain, step 7).
 
 The random components (noise and floor, drift) are propagated through the chain to first order
 (GUM 5.1.2): the chain up to |A|^2 is linear in every sweep (background subtraction, the gate as a
@@ -204,10 +204,8 @@ class NoisePropagation:
 
     def gated_power(self, name: str, s2: np.ndarray) -> np.ndarray:
         """sum_f' |G[f, f']|^2 s2(f'): the gated noise power per frequency of white-ish noise s2."""
-        key = self.gate_key(name)
-        if key not in self._g2:
-            self._g2[key] = np.abs(self.gmat(name)) ** 2
-        return self._g2[key] @ s2
+        self.gmat(name)
+        return self._g2_of(self.gate_key(name)) @ s2
 
     def cross_power(self, kx: tuple, ky: tuple, s2: np.ndarray, tag) -> np.ndarray:
         """sum_f' G_x[f, f'] conj(G_y[f, f']) s2(f') for two gates (one shared noise draw)."""

@@ -1,4 +1,4 @@
-"""The uncertainty budget (README, Uncertainty budget): honest against the truth, and each component
+"""The uncertainty budget (README, The processing chain, step 7): honest against the truth, and each component
 against an outside formula or library."""
 
 from __future__ import annotations
