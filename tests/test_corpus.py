@@ -31,7 +31,7 @@ CORPUS = Path(__file__).parent / "corpus"
 # text says (RI format: Touchstone specification 2.1, "Option line" and "Network data").
 EXPECTED_F_HZ = np.array([1e9, 2e9, 3e9])
 EXPECTED_S11 = np.array([0.1 - 0.2j, 0.3 + 0.4j, -0.5 + 0.06j])
-READ_CASES = sorted(p.name for p in (CORPUS / "read").iterdir())
+READ_CASES = sorted(p.name for p in (CORPUS / "read").iterdir() if p.suffix == ".s1p")
 # files scikit-rf 2.2 also reads (it takes neither a BOM, CR-only endings, v2 keywords in other case, nor a reordered option line)
 SKRF_CASES = ["crlf.s1p", "mixed_eol.s1p", "tabs.s1p", "long_comment.s1p", "upper_option.s1p",
               "lower_option.s1p", "mhz_trailing_comments.s1p"]
@@ -51,6 +51,8 @@ REFUSE_CASES = {
     "nan.s1p": (3, "not a finite number"),
     "inf.s1p": (3, "not a finite number"),
     "frequency_overflow.s1p": (2, "frequenc"),
+    "db_overflow.s1p": (3, "DB value 7000 overflows"),
+    "v2_no_option_line.s1p": (None, "no option line"),  # refused, not warned: version 2 requires it
 }
 # refused manifests (parse_manifest and load_campaign): name -> (line or None, fragment)
 MANIFEST_CASES = {
@@ -61,6 +63,16 @@ MANIFEST_CASES = {
     "unknown_key.toml": (29, "unknown key 'colour'"),
     "duplicate_target.toml": (30, "duplicate target name 'bare'"),
     "missing_key.toml": (30, "missing required key 'files'"),
+    "long_campaign_name.toml": (2, "'name' is 10000 characters long, more than the limit of 200"),
+    "long_notes.toml": (2, "'notes' is 30000 characters long, more than the limit of 20000"),
+    "nested_deep.toml": (None, "nested too deeply"),
+    "pad_factor_huge.toml": (10, "'pad_factor' = 1e+308 is outside its range [1, 64]"),
+    "kaiser_beta_huge.toml": (10, "'kaiser_beta' = 1e+308 is outside its range [0, 50]"),
+    "radius_huge.toml": (21, "'radius_m' = 1e+300 m is outside its range"),
+    "range_tiny.toml": (7, "'range_m' = 1e-300 m is outside its range"),
+    "size_huge.toml": (28, "'size_m' = 1e+200 m is outside its range"),
+    "unknown_background.toml": (24, "background 'nobody' is not a target"),
+    "negative_gate_centre.toml": (18, "4.2 + -5 = -0.8 m is not a positive range"),
 }
 
 
@@ -95,14 +107,22 @@ def test_corpus_file_agrees_with_scikit_rf(name):
     np.testing.assert_allclose(ours.s, ref.s, rtol=1e-13, atol=1e-15)
 
 
+def test_noise_block_after_wrapped_sub_ghz_two_port_keeps_every_frequency():
+    """Touchstone 1.1: the noise block starts where the frequency stops increasing (0.3 -> 0.1 GHz);
+    the wrapped continuation lines (first value 0.9 > 0.3 GHz) must not end the network data early."""
+    ts = read_touchstone(CORPUS / "read" / "noise_after_wrapped_sub_ghz.s2p")
+    np.testing.assert_allclose(ts.frequency_hz, [1e8, 2e8, 3e8], rtol=1e-15)
+    np.testing.assert_allclose(ts.s, np.full((3, 2, 2), 0.9 + 0j), rtol=0, atol=1e-15)
+
+
 def test_long_comment_is_kept_whole():
     ts = read_touchstone(CORPUS / "read" / "long_comment.s1p")
     assert max(len(c) for c in ts.comments) == 60_000
 
 
 def test_corpus_counts():
-    """Keeps the counts in the closing note honest: 12 read-correctly files, 13 + 7 refused."""
-    assert len(READ_CASES) == 12
+    """Keeps the counts in the closing note honest: 12 + 1 read-correctly files, 15 + 17 refused."""
+    assert len(READ_CASES) == 12 and len(list((CORPUS / "read").iterdir())) == 13
     assert sorted(REFUSE_CASES) == sorted(p.name for p in (CORPUS / "refuse").iterdir())
     assert sorted(MANIFEST_CASES) == sorted(p.name for p in (CORPUS / "manifests").iterdir() if p.name != "valid.toml")
 
