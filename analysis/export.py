@@ -157,7 +157,7 @@ def _reduction_variables(result: ProcessingResult, pols, angles, f) -> xr.Datase
         {
             "reduction_db": (dims, red, {
                 "units": "dB", "long_name": "RCS reduction of the subject against its baseline",
-                "comment": "10 log10(sigma_baseline / sigma_subject), floor-limited sigma replaced by floor + margin"}),
+                "comment": "10 log10(sigma_baseline / sigma_subject), floor-limited sigma replaced by its 95 % upper limit"}),
             "reduction_bound": (dims, bound, {
                 "long_name": "what the floor makes of the reduction (-1: no such angle or frequency)",
                 "flag_values": np.arange(len(BOUND_ORDER), dtype=np.int8), "flag_meanings": " ".join(BOUND_ORDER)}),

@@ -133,7 +133,7 @@ def sector_statistics_table(result) -> str:
                         f"{_td('polarization', m['polarization'], m['polarization'], 'text')}"
                         f"<td>{_esc(label)}</td>{cells}</tr>")
     return ('<h3>Sector statistics</h3><p>Median and percentiles over every (angle, frequency) point of the band '
-            'and sector; floor-limited points enter at floor + margin.</p>'
+            'and sector; floor-limited points enter at their 95 % upper limit.</p>'
             f'<table id="sector-statistics" class="data compact"><thead><tr>{head}</tr></thead>'
             f'<tbody>{"".join(body)}</tbody></table>')
 
