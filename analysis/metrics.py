@@ -81,12 +81,6 @@ def point_bounds(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> n
     return out
 
 
-def aggregate_bound(subject_limited: np.ndarray, baseline_limited: np.ndarray) -> str:
-    """Bound of a band/sector metric from the points in it (README, The processing chain, step 6)."""
-    s, b = bool(np.any(subject_limited)), bool(np.any(baseline_limited))
-    return {(False, False): "none", (True, False): "lower", (False, True): "upper"}.get((s, b), "undetermined")
-
-
 BOUND_PROBABILITY = 0.95  # one-sided probability with which a per-point bound holds
 BOUND_Z = 1.6448536269514722  # the standard normal quantile at BOUND_PROBABILITY (scipy.stats.norm.ppf)
 
@@ -129,11 +123,7 @@ def sum_noise_u(sigma, floor, frequency_hz, cell_hz: float, axis=None):
     u = np.sqrt(np.maximum(2 * np.maximum(sigma - floor, 0) * floor + floor ** 2, 0))
     if axis == 0:
         return np.sqrt(np.sum(u ** 2, axis=0))
-    f = np.asarray(frequency_hz, float)
-    cell = np.floor((f - f[0]) / cell_hz).astype(int) if cell_hz > 0 else np.arange(len(f))
-    sums = np.zeros((u.shape[0], cell.max() + 1))
-    np.add.at(sums, (slice(None), cell), u)
-    per_angle = np.sqrt(np.sum(sums ** 2, axis=1))
+    per_angle = _correlated_per_angle(u, frequency_hz, cell_hz)
     return per_angle if axis == 1 else float(np.sqrt(np.sum(per_angle ** 2)))
 
 
@@ -185,16 +175,6 @@ def reduction_db(sigma_baseline, sigma_subject):
     return 10 * np.log10(np.asarray(sigma_baseline) / np.asarray(sigma_subject))
 
 
-def band_reduction_db(sigma_baseline, sigma_subject) -> float:
-    """Linear sums over every frequency and angle given, then dB."""
-    return float(10 * np.log10(np.sum(sigma_baseline) / np.sum(sigma_subject)))
-
-
-def sector_curve_db(sigma_baseline, sigma_subject) -> np.ndarray:
-    """R(f) = 10 log10(sum over angles of sigma_baseline / same of sigma_subject); input (angle, frequency)."""
-    return 10 * np.log10(np.sum(sigma_baseline, axis=0) / np.sum(sigma_subject, axis=0))
-
-
 @dataclass(frozen=True)
 class Bandwidth:
     best_db: float
@@ -236,13 +216,6 @@ def _crossing(f0, f1, r0, r1, level) -> float:
     return float(f0 + (level - r0) * (f1 - f0) / (r1 - r0))
 
 
-def worst_angle(angle_deg, sigma_baseline, sigma_subject) -> tuple[float, float]:
-    """(angle, its band-averaged reduction) for the angle with the smallest one; input (angle, frequency)."""
-    per_angle = 10 * np.log10(np.sum(sigma_baseline, axis=1) / np.sum(sigma_subject, axis=1))
-    k = int(np.argmin(per_angle))
-    return float(np.asarray(angle_deg)[k]), float(per_angle[k])
-
-
 def interference_uncertainty_db(snr_db):
     """Standard uncertainty (dB) of a power next to a random-phase interferer SNR dB below.
 
@@ -281,12 +254,17 @@ def correlated_sum_uncertainty(u_abs: np.ndarray, frequency_hz: np.ndarray, cell
     correlated (added linearly); cells and angles are independent (added in quadrature), as
     README, The processing chain, step 7 says.
     """
+    return float(np.sqrt(np.sum(_correlated_per_angle(np.atleast_2d(u_abs), frequency_hz, cell_hz) ** 2)))
+
+
+def _correlated_per_angle(u: np.ndarray, frequency_hz, cell_hz: float) -> np.ndarray:
+    """Per angle (row of u), sqrt(sum over cells of (sum of u within the cell)^2): samples closer than one
+    correlation cell in frequency add linearly, cells in quadrature."""
     f = np.asarray(frequency_hz, float)
     cell = np.floor((f - f[0]) / cell_hz).astype(int) if cell_hz > 0 else np.arange(len(f))
-    u = np.atleast_2d(u_abs)
     sums = np.zeros((u.shape[0], cell.max() + 1))
     np.add.at(sums, (slice(None), cell), u)
-    return float(np.sqrt(np.sum(sums ** 2)))
+    return np.sqrt(np.sum(sums ** 2, axis=1))
 
 
 OFFSET_MIN_CORRELATION = 0.5  # below this the patterns share too little structure to align

@@ -809,7 +809,6 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
             mo = metrics.assess_mounting_offset(s_angles, pat_b, pat_s)
             offset, corr, reliable = mo.offset_deg, mo.correlation, mo.offset_deg is not None
             s_use = s_sig
-            s_rep = None if t.rep_rel_u is None else t.rep_rel_u.sel(polarization=pol).values
             aligned = settings.align_angles and reliable and offset != 0.0
             if settings.align_angles and not reliable:
                 warnings.append(f"{name} {pol}: --align-angles did nothing: no reliable mounting offset against "
@@ -819,9 +818,6 @@ def _cloak_metrics(targets, f, valid, band_mask, min_span, settings: ProcessSett
                                 f"{t.baseline} is 0 deg")
             if aligned:
                 s_use = metrics.resample_angles(s_angles, s_sig, np.asarray(s_angles) + offset)
-                if s_rep is not None:
-                    s_rep = metrics.resample_angles(s_angles, s_rep, np.asarray(s_angles) + offset)
-            b_rep = None if base.rep_rel_u is None else base.rep_rel_u.sel(polarization=pol).values[idx]
             s_floor = np.broadcast_to(t.floor.sel(polarization=pol).values, s_use.shape)
             b_floor = np.broadcast_to(base.floor.sel(polarization=pol).values, b_sig.shape)
             s_b, s_lim = metrics.bounded_sigma(s_use, s_floor, margin)

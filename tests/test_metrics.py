@@ -12,17 +12,18 @@ def test_band_reduction_sums_linear_before_db():
     # README, The processing chain, step 6: 10 log10(sum sigma_baseline / sum sigma_subject), linear sums first
     b = np.array([[1.0, 1.0], [1.0, 1.0]])
     s = np.array([[0.1, 0.01], [0.1, 0.01]])
-    assert metrics.band_reduction_db(b, s) == pytest.approx(10 * np.log10(4 / 0.22))
+    band = metrics.corrected_reduction(b, np.zeros(2), s, np.zeros(2), [8e9, 9e9], 1e9, 2.0)["band_db"]
+    assert band == pytest.approx(10 * np.log10(4 / 0.22))
     # not the mean of the per-point dB values (15 dB here)
-    assert metrics.band_reduction_db(b, s) != pytest.approx(15.0)
+    assert band != pytest.approx(15.0)
 
 
 def test_sector_curve_and_worst_angle():
     b = np.ones((3, 4))
     s = np.array([[0.1] * 4, [0.01] * 4, [0.5] * 4])
-    np.testing.assert_allclose(metrics.sector_curve_db(b, s), 10 * np.log10(3 / 0.61))
-    angle, red = metrics.worst_angle([-5, 0, 5], b, s)
-    assert angle == 5 and red == pytest.approx(10 * np.log10(2))
+    cr = metrics.corrected_reduction(b, np.zeros(4), s, np.zeros(4), np.linspace(8e9, 9e9, 4), 1e9, 2.0)
+    np.testing.assert_allclose(cr["curve_db"], 10 * np.log10(3 / 0.61))
+    assert int(np.argmin(cr["angle_db"])) == 2 and cr["angle_db"][2] == pytest.approx(10 * np.log10(2))
 
 
 def test_bandwidth_edges_interpolated():
@@ -59,10 +60,6 @@ def test_bounds():
     s = np.array([True, False, True, False])
     b = np.array([False, True, True, False])
     assert list(metrics.point_bounds(s, b)) == ["lower", "upper", "undetermined", "none"]
-    assert metrics.aggregate_bound(s[:1], b[:1]) == "lower"
-    assert metrics.aggregate_bound(s[1:2], b[1:2]) == "upper"
-    assert metrics.aggregate_bound(s, b) == "undetermined"
-    assert metrics.aggregate_bound(s[3:], b[3:]) == "none"
     sig, lim = metrics.bounded_sigma(np.array([1e-6, 1.0]), np.array([1e-6, 1e-6]), 10.0)
     # a floor-limited point takes its upper limit (|m| + z sqrt(N / 2))^2, z the 95 % normal quantile
     np.testing.assert_allclose(sig, [(1e-3 + 1.6448536269514722 * np.sqrt(0.5e-6)) ** 2, 1.0])
