@@ -157,11 +157,6 @@ METRICS = ("band_reduction_db", "best_reduction_db", "sector_curve_db")
 
 # ---------------------------------------------------------------- noise and drift, propagated linearly
 
-def gate_matrix(f, center_m: float, span_m: float, gate: dict) -> np.ndarray:
-    """The gate as a matrix G (nf, nf): time_gate(s) = G @ s (the gate is linear in the sweep)."""
-    return timedomain.time_gate(f, np.eye(len(f), dtype=complex), center_m, span_m, **gate).T
-
-
 @dataclass
 class _Part:
     """One target's share of a metric: delta metric = DB 2 Re sum_{a, f} V[a, f] delta_g[a, f]."""
@@ -187,44 +182,36 @@ class NoisePropagation:
 
     def __init__(self, model: "ChainModel"):
         self.model = model
-        self._g: dict[tuple, np.ndarray] = {}
-        self._g2: dict[tuple, np.ndarray] = {}
+        self._ops: dict[tuple, timedomain.GateOperator] = {}
         self._cross: dict[tuple, np.ndarray] = {}
 
     def gate_key(self, name: str) -> tuple:
         t = self.model.targets[name]
         return (t.center_m, t.span_m)
 
-    def gmat(self, name: str) -> np.ndarray:
+    def op(self, name: str) -> timedomain.GateOperator:
+        """The target's gate as a linear operator (one per gate, shared by targets gated alike)."""
         key = self.gate_key(name)
-        if key not in self._g:
+        if key not in self._ops:
             t = self.model.targets[name]
-            self._g[key] = gate_matrix(self.model.frequency_hz, t.center_m, t.span_m, self.model.gate)
-        return self._g[key]
+            self._ops[key] = timedomain.GateOperator(self.model.frequency_hz, t.center_m, t.span_m, **self.model.gate)
+        return self._ops[key]
 
     def gated_power(self, name: str, s2: np.ndarray) -> np.ndarray:
-        """sum_f' |G[f, f']|^2 s2(f'): the gated noise power per frequency of white-ish noise s2."""
-        self.gmat(name)
-        return self._g2_of(self.gate_key(name)) @ s2
+        """sum_f' |G[f, f']|^2 s2(f'): the gated noise power per frequency of noise of variance s2(f')."""
+        return self.op(name).power(s2)
 
     def cross_power(self, kx: tuple, ky: tuple, s2: np.ndarray, tag) -> np.ndarray:
         """sum_f' G_x[f, f'] conj(G_y[f, f']) s2(f') for two gates (one shared noise draw)."""
         key = (kx, ky, tag)
         if key not in self._cross:
-            self._cross[key] = (self._g[kx] * np.conj(self._g[ky])) @ s2 if kx != ky else self._g2_of(kx) @ s2
+            self._cross[key] = self._ops[kx].cross_power(self._ops[ky], s2)
         return self._cross[key]
 
-    def _g2_of(self, key: tuple) -> np.ndarray:
-        if key not in self._g2:
-            self._g2[key] = np.abs(self._g[key]) ** 2
-        return self._g2[key]
-
     @staticmethod
-    def _apply(v: np.ndarray, G: np.ndarray) -> np.ndarray:
-        """v @ G over the rows and columns of v that are not zero (the sector's angles, the band)."""
-        rows = np.flatnonzero(np.any(v != 0, axis=1))
-        cols = np.flatnonzero(np.any(v != 0, axis=0))
-        return v[np.ix_(rows, cols)] @ G[cols, :]
+    def _apply(v: np.ndarray, op: timedomain.GateOperator) -> np.ndarray:
+        """v @ G over the rows of v that are not zero (the sector's angles)."""
+        return op.apply_transpose(v[np.flatnonzero(np.any(v != 0, axis=1))])
 
     def _deriv(self, name: str, ip: int) -> np.ndarray:
         """dA/dg (nf,) of a target: K R^2 exp(+j 2 k R)."""
@@ -287,9 +274,9 @@ class NoisePropagation:
         bg_pol: dict[str, int] = {}
         for p in parts:
             t = m.targets[p.name]
-            G = self.gmat(p.name)
+            op = self.op(p.name)
             s2 = m.noise_std[p.name][p.ip] ** 2 / t.n_rep
-            h = self._apply(p.v, G)  # coefficient of each raw noise sample
+            h = self._apply(p.v, op)  # coefficient of each raw noise sample
             var_band += np.sum(np.abs(h) ** 2 * s2)
             pw = self.gated_power(p.name, s2)  # gated noise power of the mean per frequency
             var_curve = var_curve + np.sum(np.abs(p.v_curve) ** 2, axis=0) * pw
@@ -297,7 +284,7 @@ class NoisePropagation:
                 b = m.backgrounds[t.background]
                 j = np.zeros((b.n_angles, len(m.frequency_hz)), complex)
                 np.add.at(j, t.bg_index, p.v)
-                bg_h[t.background] = bg_h.get(t.background, 0.0) - j @ G
+                bg_h[t.background] = bg_h.get(t.background, 0.0) - op.apply_transpose(j)
                 jc = np.zeros((b.n_angles, len(m.frequency_hz)), complex)
                 np.add.at(jc, t.bg_index, p.v_curve)
                 per_gate = bg_curve.setdefault(t.background, {})

@@ -50,14 +50,30 @@ def test_every_budget_names_its_components(study):
 
 # ---------------------------------------------------------------- components against outside sources
 
-def test_gate_is_a_linear_operator_equal_to_its_matrix():
-    # the gate is linear (a window, an inverse DFT, a multiplication and a DFT): G @ s == time_gate(s)
+def _dense_gate(f, center_m, span_m, gate):
+    """The gate as a dense matrix G (nf, nf), built column by column from time_gate of unit sweeps."""
+    return timedomain.time_gate(f, np.eye(len(f), dtype=complex), center_m, span_m, **gate).T
+
+
+@pytest.mark.parametrize("normalise", [True, False])
+def test_gate_operator_equals_the_dense_gate_matrix(normalise):
+    # the gate is linear (a window, an inverse DFT, a multiplication and a DFT), so G @ s == time_gate(s); the
+    # FFT forms of s @ G, |G|^2 @ s2 and (G_x conj G_y) @ s2 must equal the dense products (linear algebra)
     f = np.linspace(8e9, 12e9, 161)
     rng = np.random.default_rng(7)
     s = rng.normal(size=(3, 161)) + 1j * rng.normal(size=(3, 161))
-    gate = {"window": "kaiser", "kaiser_beta": 6.0, "pad_factor": 4, "edge_fraction": 0.2}
-    G = uncertainty.gate_matrix(f, 3.8, 0.5, gate)
-    np.testing.assert_allclose(s @ G.T, timedomain.time_gate(f, s, 3.8, 0.5, **gate), rtol=1e-10, atol=1e-12)
+    s2 = rng.uniform(0.5, 2.0, 161)
+    gate = {"window": "kaiser", "kaiser_beta": 6.0, "pad_factor": 4, "edge_fraction": 0.2, "normalise": normalise}
+    G = _dense_gate(f, 3.8, 0.5, gate)
+    H = _dense_gate(f, 3.95, 0.6, gate)
+    op, other = timedomain.GateOperator(f, 3.8, 0.5, **gate), timedomain.GateOperator(f, 3.95, 0.6, **gate)
+    scale = np.abs(s @ G.T).max()
+    np.testing.assert_allclose(op.apply(s), s @ G.T, rtol=0, atol=1e-12 * scale)
+    np.testing.assert_allclose(op.apply(s), timedomain.time_gate(f, s, 3.8, 0.5, **gate), rtol=1e-12)
+    np.testing.assert_allclose(op.apply_transpose(s), s @ G, rtol=0, atol=1e-12 * np.abs(s @ G).max())
+    np.testing.assert_allclose(op.power(s2), np.abs(G) ** 2 @ s2, rtol=1e-10)
+    cross = (G * np.conj(H)) @ s2
+    np.testing.assert_allclose(op.cross_power(other, s2), cross, rtol=0, atol=1e-10 * np.abs(cross).max())
 
 
 def test_drift_from_repeats_recovers_the_simulated_drift():
