@@ -33,7 +33,7 @@ LOCK_NAME = ".cloakrcs.lock"
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")  # cells a spreadsheet would evaluate (OWASP, CSV injection)
 
 # decimals kept per CSV column (well below any measurement's resolution); others as they are
-CSV_DECIMALS = {"rcs_dbsm": 4, "phase_deg": 3, "floor_dbsm": 3, "reduction_db": 4, "angle_deg": 6}
+CSV_DECIMALS = {"rcs_dbsm": 4, "phase_deg": 3, "floor_dbsm": 3, "reduction_db": 4, "angle_deg": 6, "u_rcs_db": 4}
 
 
 def write_csv(path: Path, table) -> None:
