@@ -124,6 +124,9 @@ class TargetCube(SweepCubeAxes):
     n_ports: int
     parameters: dict[str, str]  # polarization -> S-parameter carrying the echo
     warnings: list[str] = field(default_factory=list)  # what the reader tolerated in its files
+    # {flat sweep index: the reader's warnings for that file, its path taken off the front}, kept in the
+    # store so that a later run taking the sweeps from there warns as a fresh read would
+    file_warnings: dict[str, list[str]] = field(default_factory=dict)
 
     def to_networks(self):
         """The raw sweeps as scikit-rf one-port Networks of the echo parameter.
@@ -154,6 +157,8 @@ class Campaign:
     frequency_hz: np.ndarray
     warnings: list[str] = field(default_factory=list)
     arm: dict = field(default_factory=dict)  # receiver-arm targets: name -> cloakrcs.bistatic.ArmCube
+    # with a store: {"from_store": n, "read": n, "changed": [paths whose stored sweep changed]}
+    reuse: dict | None = None
 
     def cube(self, name: str) -> TargetCube:
         return self.cubes[name]
@@ -371,8 +376,10 @@ def load_target(manifest: Manifest, spec: TargetSpec, workers: int | None = None
     )
     files = np.array([str(p) for p in paths], dtype=object).reshape(len(pols), len(angles), len(repeats))
     hashes = {str(p): e.sha256 for p, e in zip(paths, echoes)}
+    per_file = {str(k): [w[len(str(p)):] for w in e.warnings] for k, (p, e) in enumerate(zip(paths, echoes))
+                if e.warnings}
     return TargetCube(spec=spec, data=cube, files=files, hashes=hashes, n_ports=n_ports, parameters=params,
-                      warnings=reader_warnings(spec, paths, echoes))
+                      warnings=reader_warnings(spec, paths, echoes), file_warnings=per_file)
 
 
 def check_campaign(manifest: Manifest, cubes: dict[str, TargetCube], problem, warn) -> None:
@@ -732,7 +739,8 @@ def inspect_campaign(path, workers=None, root=None) -> tuple[Campaign | None, li
     return campaign, problems, warnings
 
 
-def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFORM_SAMPLES) -> Campaign:
+def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFORM_SAMPLES,
+                  store_url: str | None = None) -> Campaign:
     """Load and validate a campaign; raises the first problem as InputError.
 
     Parameters
@@ -744,13 +752,17 @@ def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFOR
         per core for many files); ``workers=1`` reads serially.
     root : str or os.PathLike, optional
         Keep every data file inside this folder (uploaded campaigns).
+    store_url : str, optional
+        A results store holding earlier runs: every file whose SHA-256 matches a sweep stored there
+        (read with the same S-parameter) is taken from the store instead of being parsed again;
+        the others are read. ``Campaign.reuse`` says how many came from where.
 
     Returns
     -------
     Campaign
         ``cubes`` {target name: TargetCube}, each ``data`` an xarray.DataArray of complex VNA
         ratios (polarization, angle in degrees as measured, repeat, frequency in Hz);
-        ``frequency_hz``; ``warnings`` (list of one-line str).
+        ``frequency_hz``; ``warnings`` (list of one-line str); ``reuse`` (None without a store).
 
     Raises
     ------
@@ -768,7 +780,17 @@ def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFOR
             paths.append(sweep.path)
             params.append(_file_parameter(spec, sweep.polarization))
             owner.append(k)
-    echoes = touchstone.read_echoes(paths, params, workers)
+    reuse = None
+    if store_url is None:
+        echoes = touchstone.read_echoes(paths, params, workers)
+    else:
+        from . import store
+
+        echoes, reuse = store.stored_echoes(store_url, paths, params, manifest.path, workers)
+        fresh = [i for i, e in enumerate(echoes) if e is None]
+        for i, echo in zip(fresh, touchstone.read_echoes([paths[i] for i in fresh], [params[i] for i in fresh],
+                                                         workers)):
+            echoes[i] = echo
     owner = np.asarray(owner)
     cubes = {spec.name: load_target(manifest, spec, workers, root, plan,
                                     [echoes[i] for i in np.flatnonzero(owner == k)])
@@ -783,7 +805,7 @@ def load_campaign(path, workers=None, root=None, max_samples: int = MAX_TRANSFOR
     warnings = [w for cube in cubes.values() for w in cube.warnings]
     check_campaign(manifest, cubes, fail, warnings.append)
     freq = next(iter(cubes.values())).data.frequency.values
-    campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings)
+    campaign = Campaign(manifest=manifest, cubes=cubes, frequency_hz=freq, warnings=warnings, reuse=reuse)
     if manifest.arm_targets:
         from . import bistatic
 

@@ -9,6 +9,7 @@ first, so a bad ``--store`` fails before the work.
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -82,12 +83,28 @@ def _progress(quiet: bool, total: int):
     return bar, tick
 
 
-def publish_run(folder, result: ProcessingResult, campaign: Campaign | None, url: str | None):
+def reuse_notes(reuse: dict | None) -> list[str]:
+    """Lines saying which sweeps came from the store and which files changed since they were stored."""
+    if not reuse or not reuse["from_store"] and not reuse["changed"]:
+        return []
+    lines = [f"{reuse['from_store']} of {reuse['from_store'] + reuse['read']} sweeps taken from the store "
+             f"(their files' SHA-256 unchanged); {reuse['read']} file(s) read"]
+    changed = reuse["changed"]
+    if changed:
+        shown = ", ".join(Path(p).name for p in changed[:3]) + (f" and {len(changed) - 3} more" if len(changed) > 3 else "")
+        lines.append(f"{len(changed)} file(s) changed since they were stored, read afresh: {shown}")
+    return lines
+
+
+def publish_run(folder, result: ProcessingResult, campaign: Campaign | None, url: str | None, ready=None):
     """Move a staged run's outputs into place and record it in the store (``url`` None: no store) as one
-    outcome; returns (run_id, paths). The summary gets the run id inside the transaction."""
+    outcome; returns (run_id, paths). The summary gets the run id inside the transaction. ``ready()``, when
+    given, is called before anything is moved (it waits for outputs still being written)."""
     from . import outputs
 
     if url is None:
+        if ready is not None:
+            ready()
         with outputs.interrupts_deferred():
             return None, folder.publish()
     from . import store
@@ -95,11 +112,24 @@ def publish_run(folder, result: ProcessingResult, campaign: Campaign | None, url
     paths: dict = {}
 
     def place(run_id: int) -> None:
+        if ready is not None:
+            ready()
         outputs.write_summary(result, folder.staging, {"run_id": run_id})
         paths.update(folder.publish())
 
     run_id = store.record_run(url, campaign, result, before_commit=place, on_rollback=folder.restore)
     return run_id, paths
+
+
+def write_tables(result: ProcessingResult, staging) -> None:
+    """rcs.csv, reduction.csv, summary.json and the receiver-arm tables into the staging folder."""
+    from . import outputs
+
+    outputs.write_outputs(result, staging)
+    if result.arm is not None:
+        from .bistatic import write_arm_outputs
+
+        write_arm_outputs(result.arm, staging)
 
 
 def run_process(manifest, out_dir, settings: ProcessSettings | None = None, store_url: str | None = "",
@@ -119,36 +149,34 @@ def run_process(manifest, out_dir, settings: ProcessSettings | None = None, stor
         from . import store
 
         url = store.check_store(store_url or None)  # a bad store fails now, not after the work
-    campaign = campaign or load_campaign(manifest)
+    campaign = campaign or load_campaign(manifest, store_url=url)
     bar, tick = _progress(quiet, len(campaign.cubes) + 6)
     try:
         result = process_campaign(campaign, settings, progress=tick)
-        html = None
-        if report:
-            from .report import render_report  # imported only when used: plotly is slow to import
-
-            html = render_report(result, campaign)
         folder = outputs.OutputFolder(out_dir, lock=lock).open()  # nothing is written before this point
         keep = False
-        notes: list = []
+        notes: list = reuse_notes(campaign.reuse)
         try:
-            outputs.write_outputs(result, folder.staging)
-            if result.arm is not None:  # receiver-arm (bistatic) tables
-                from .bistatic import write_arm_outputs
+            # the tables are written on a thread (Arrow's CSV writer releases the GIL) while this one
+            # renders the report and fills the store; the pool is joined before the folder is closed
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                tables = pool.submit(write_tables, result, folder.staging)
+                if report:
+                    from .report import render_report  # imported only when used: plotly is slow to import
 
-                write_arm_outputs(result.arm, folder.staging)
-            if html is not None:
-                outputs.write_text(folder.staging / "report.html", html)
-            tick("outputs")
-            if not publish:
-                keep = True
-                return Outcome(result=result, out_dir=folder.out, paths={}, store_url=url, staging=folder.staging)
-            shared = None
-            if url is not None:
-                from . import store
+                    outputs.write_text(folder.staging / "report.html", render_report(result, campaign))
+                if not publish:
+                    tables.result()
+                    tick("outputs")
+                    keep = True
+                    return Outcome(result=result, out_dir=folder.out, paths={}, store_url=url, staging=folder.staging)
+                shared = None
+                if url is not None:
+                    from . import store
 
-                shared = store.files_already_stored(url, campaign)
-            run_id, placed = publish_run(folder, result, campaign, url)
+                    shared = store.files_already_stored(url, campaign)
+                run_id, placed = publish_run(folder, result, campaign, url, ready=tables.result)
+                tick("outputs")
             if shared:
                 notes.append(f"these {shared['files']} files (of {shared['of']}) are already stored under campaign "
                              f"{shared['campaign']!r} (id {shared['campaign_id']}): the new campaign is linked to it")

@@ -37,7 +37,7 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from sqlalchemy import create_engine, event, func, select
+from sqlalchemy import create_engine, event, func, insert, select
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import ArgumentError, DatabaseError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session, sessionmaker
@@ -236,7 +236,7 @@ def _alembic_config():
     return cfg
 
 
-SCHEMA_REVISION = "i17a"  # newest migration in analysis/migrations/versions (a test keeps them equal)
+SCHEMA_REVISION = "i15a"  # newest migration in analysis/migrations/versions (a test keeps them equal)
 
 
 def _stored_revision(engine) -> str | None:
@@ -258,7 +258,7 @@ def _migrate(engine) -> None:
     A store already at SCHEMA_REVISION is left alone without importing Alembic (its import
     costs about a second at every start).
     """
-    if _stored_revision(engine) == SCHEMA_REVISION:
+    if _stored_revision(engine) == SCHEMA_REVISION or _create_new(engine):
         return
     from alembic import command
     from alembic.runtime.migration import MigrationContext
@@ -275,6 +275,28 @@ def _migrate(engine) -> None:
         cfg.attributes["connection"] = conn
         command.upgrade(cfg, "head")
         conn.commit()
+
+
+def _create_new(engine) -> bool:
+    """An empty store gets the newest schema from the models in one step, stamped with SCHEMA_REVISION
+    (what replaying every migration gives; a test compares the two). False when the store is not empty."""
+    from sqlalchemy import inspect as sa_inspect
+    from sqlalchemy import text
+
+    from . import store_schema as S
+
+    with engine.execution_options(cloakrcs_write=True).connect() as conn:
+        if engine.dialect.name == "postgresql":  # SQLite's writers lock at BEGIN; PostgreSQL's creators queue here
+            conn.exec_driver_sql("SELECT pg_advisory_xact_lock(7215)")
+        if sa_inspect(conn).get_table_names():  # checked inside the write lock: one creator at a time
+            conn.rollback()
+            return False
+        S.Base.metadata.create_all(conn)
+        conn.execute(text("CREATE TABLE alembic_version (version_num VARCHAR(32) NOT NULL, "
+                          "CONSTRAINT alembic_version_pkc PRIMARY KEY (version_num))"))
+        conn.execute(text("INSERT INTO alembic_version (version_num) VALUES (:v)"), {"v": SCHEMA_REVISION})
+        conn.commit()
+    return True
 
 
 def open_store(url: str | None = None, write: bool = False) -> sessionmaker:
@@ -437,15 +459,102 @@ def _ensure_campaign(s: Session, campaign) -> S.Campaign:
             role=spec.role, date=dates.get(spec.name), spec=_spec_dict(spec), n_ports=cube.n_ports,
             parameters=dict(cube.parameters), polarizations=cube.polarizations,
             angles_deg=pack_array(cube.angles_deg), repeats=pack_array(cube.data.repeat.values),
-            data=pack_array(cube.data.values.astype(np.complex128, copy=False)))
+            data=pack_array(cube.data.values.astype(np.complex128, copy=False)),
+            frequency_hz=pack_array(cube.data.frequency.values), file_warnings=dict(cube.file_warnings))
         s.add(t)
         s.flush()
-        for (ip, ia, ir), path in np.ndenumerate(cube.files):
-            s.add(S.CampaignFile(campaign_id=row.id, target_id=t.id, path=os.path.relpath(path, m.folder).replace(
-                os.sep, "/"), sha256=cube.hashes[str(path)], polarization=cube.polarizations[ip],
-                angle_index=ia, repeat_index=ir))
+        pols = cube.polarizations
+        s.execute(insert(S.CampaignFile), [  # one executemany for all of a target's files
+            {"campaign_id": row.id, "target_id": t.id, "path": os.path.relpath(path, m.folder).replace(os.sep, "/"),
+             "sha256": cube.hashes[str(path)], "polarization": pols[ip], "angle_index": ia, "repeat_index": ir}
+            for (ip, ia, ir), path in np.ndenumerate(cube.files)])
     s.flush()
     return row
+
+
+def _hash_files(paths, workers: int | None) -> list[str]:
+    """SHA-256 of each file, on a thread per core (hashlib and file reads release the GIL)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .touchstone import file_sha256
+
+    with ThreadPoolExecutor(max_workers=workers or os.cpu_count() or 1) as pool:
+        return list(pool.map(file_sha256, paths, chunksize=64))
+
+
+def stored_echoes(url: str | None, paths, parameters, manifest_path: Path, workers: int | None = None):
+    """The echoes of these files that the store already holds, found by SHA-256.
+
+    Parameters
+    ----------
+    url : str or None
+        The results store.
+    paths : list of Path
+        Sweep files, in reading order.
+    parameters : list of str or None
+        The S-parameter each file is read for (None: the default for its port count).
+    manifest_path : Path
+        The campaign's manifest: a stored campaign of the same manifest whose file at the same
+        (relative) path has another SHA-256 names that file as changed.
+    workers : int, optional
+        Hashing threads (default one per core).
+
+    Returns
+    -------
+    (list, dict)
+        Per file a :class:`cloakrcs.touchstone.Echo` rebuilt from the stored sweep (bit for bit the
+        values, frequency grid and reader warnings a fresh read gives) or None where the file must be
+        read; and ``{"from_store", "read", "changed"}``: counts, and the files whose stored sweep at the
+        same path has a different SHA-256 (changed since they were stored).
+    """
+    from .touchstone import Echo
+
+    paths = [Path(p) for p in paths]
+    out: list = [None] * len(paths)
+    with open_store(url)() as s:
+        if s.scalar(select(S.CampaignFile.id).limit(1)) is None:  # an empty store: nothing to hash for
+            return out, {"from_store": 0, "read": len(paths), "changed": []}
+        hashes = _hash_files(paths, workers)
+        hit: dict[str, tuple] = {}
+        unique = sorted(set(hashes))
+        for i in range(0, len(unique), 500):
+            q = (select(S.CampaignFile.sha256, S.CampaignFile.target_id, S.CampaignFile.polarization,
+                        S.CampaignFile.angle_index, S.CampaignFile.repeat_index)
+                 .join(S.CampaignTarget, S.CampaignFile.target_id == S.CampaignTarget.id)
+                 .where(S.CampaignFile.sha256.in_(unique[i:i + 500]), S.CampaignTarget.file_warnings.is_not(None))
+                 .order_by(S.CampaignFile.id.desc()))  # the newest stored copy of a file
+            for sha, *where in s.execute(q):
+                hit.setdefault(sha, tuple(where))
+        targets = {}
+        for tid in sorted({hit[h][0] for h in hashes if h in hit}):
+            t = s.get(S.CampaignTarget, tid)
+            data = unpack_array(t.data)
+            targets[tid] = (t, data, unpack_array(t.frequency_hz), data.shape)
+        for k, (path, sha, parameter) in enumerate(zip(paths, hashes, parameters)):
+            if sha not in hit:
+                continue
+            tid, pol, ia, ir = hit[sha]
+            t, data, freq, (n_pol, n_ang, n_rep, _) = targets[tid]
+            name = parameter or {1: "S11", 2: "S21"}.get(t.n_ports)
+            if name is None or pol not in t.polarizations or t.parameters.get(pol) != name:
+                continue  # read for another parameter than it was stored with
+            ip = t.polarizations.index(pol)
+            tails = t.file_warnings.get(str((ip * n_ang + ia) * n_rep + ir), [])
+            out[k] = Echo(freq, data[ip, ia, ir].copy(), t.n_ports, name, sha,
+                          tuple(str(path) + tail for tail in tails))
+        missed = [k for k, e in enumerate(out) if e is None]
+        changed = []
+        rel = {os.path.relpath(paths[k], Path(manifest_path).parent).replace(os.sep, "/"): k for k in missed}
+        names = sorted(rel)
+        for i in range(0, len(names), 500):
+            q = (select(S.CampaignFile.path, S.CampaignFile.sha256)
+                 .join(S.Campaign, S.CampaignFile.campaign_id == S.Campaign.id)
+                 .where(S.Campaign.manifest_path == str(manifest_path), S.CampaignFile.path.in_(names[i:i + 500])))
+            for p, sha in s.execute(q):
+                if sha != hashes[rel[p]]:
+                    changed.append(paths[rel[p]])
+    return out, {"from_store": len(paths) - len(missed), "read": len(missed),
+                 "changed": sorted(set(changed), key=str)}
 
 
 def _campaign_sharing_files(s: Session, campaign) -> tuple[int, str, int, int] | None:

@@ -93,6 +93,10 @@ class CampaignTarget(Base):
     angles_deg: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
     repeats: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
     data: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
+    # the target's frequency grid (Hz) and {flat sweep index: reader warnings without the file's path};
+    # None on targets stored before schema revision i15a (their files are then read afresh)
+    frequency_hz: Mapped[bytes | None] = mapped_column(LargeBinary)
+    file_warnings: Mapped[dict | None] = mapped_column(JSON)
 
 
 class CampaignFile(Base):

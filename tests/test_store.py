@@ -361,15 +361,28 @@ def test_urls(tmp_path, monkeypatch):
         store.resolve_url("mysql://u@h/db")
 
 
-def test_migrations_match_the_models(store_url):
-    """The Alembic migrations build exactly the tables the ORM models describe (alembic autogenerate)."""
+def test_migrations_match_the_models(store_url, tmp_path):
+    """A new store is created from the ORM models and stamped; replaying every Alembic migration on an
+    empty database builds exactly the same tables (alembic autogenerate's comparison is the reference)."""
+    from alembic import command
     from alembic.autogenerate import compare_metadata
     from alembic.migration import MigrationContext
+    from sqlalchemy import create_engine
 
     engine = store.open_store(store_url).kw["bind"]
     with engine.connect() as conn:
         diff = compare_metadata(MigrationContext.configure(conn), S.Base.metadata)
+        assert MigrationContext.configure(conn).get_current_revision() == store.SCHEMA_REVISION
     assert diff == []
+    replayed = create_engine(f"sqlite:///{(tmp_path / 'replayed.sqlite').as_posix()}")
+    cfg = store._alembic_config()
+    with replayed.connect() as conn:
+        cfg.attributes["connection"] = conn
+        command.upgrade(cfg, "head")
+        conn.commit()
+        assert compare_metadata(MigrationContext.configure(conn), S.Base.metadata) == []
+        assert MigrationContext.configure(conn).get_current_revision() == store.SCHEMA_REVISION
+    replayed.dispose()
     # SQLite journal mode after opening (https://sqlite.org/wal.html: PRAGMA journal_mode returns "wal")
     if engine.dialect.name == "sqlite":
         with engine.connect() as conn:
@@ -417,3 +430,53 @@ def test_schema_revision_constant_is_alembic_head():
     from alembic.script import ScriptDirectory
 
     assert ScriptDirectory.from_config(store._alembic_config()).get_current_head() == store.SCHEMA_REVISION
+
+
+# ---------------------------------------------------------------- reprocessing from stored sweeps
+
+def _outputs(folder: Path) -> dict:
+    """rcs.csv and reduction.csv bytes, and summary.json without its run id."""
+    summary = json.loads((folder / "summary.json").read_text())
+    summary.pop("run_id", None)
+    return {"rcs": (folder / "rcs.csv").read_bytes(), "reduction": (folder / "reduction.csv").read_bytes(),
+            "summary": summary}
+
+
+def test_reprocessing_takes_unchanged_sweeps_from_the_store(store_url, tmp_path, capsys):
+    # a warm run must give byte for byte what a cold read of the same files gives (the fast path's contract)
+    manifest = write_campaign(tmp_path / "c", "reuse", [("r1", "R1", 0.1)])
+    tagged = tmp_path / "c" / "raw" / "bare_VV_+005.0.s1p"  # R without a value: the reader warns about it
+    tagged.write_text(tagged.read_text().replace("# Hz S RI R 50", "# Hz S RI R"))
+
+    def run(out: str, *store_args: str) -> str:
+        assert main(["process", str(manifest), "--out", str(tmp_path / out), "--quiet", *store_args]) == 0
+        return capsys.readouterr().out
+
+    first = run("cold", "--store", store_url)
+    assert "taken from the store" not in first
+    second = run("warm", "--store", store_url)
+    assert "18 of 18 sweeps taken from the store" in second, second
+    cold, warm = _outputs(tmp_path / "cold"), _outputs(tmp_path / "warm")
+    assert warm == cold
+    assert any("bare_VV_+005.0.s1p" in w and "R has no value" in w for w in warm["summary"]["warnings"])
+
+    changed = tmp_path / "c" / "raw" / "bare_HH_+000.0.s1p"
+    write_s1p(changed, FREQ, point_echo(FREQ, 4.2, 0.25))
+    third = run("changed", "--store", store_url)
+    assert "17 of 18 sweeps taken from the store" in third, third
+    assert "1 file(s) changed since they were stored, read afresh: bare_HH_+000.0.s1p" in third
+    run("plain", "--no-store")
+    assert _outputs(tmp_path / "changed") == _outputs(tmp_path / "plain")
+    assert _outputs(tmp_path / "changed")["rcs"] != cold["rcs"]
+
+
+def test_sweeps_stored_before_the_reuse_columns_are_read_afresh(sqlite_url, tmp_path, capsys):
+    # targets recorded by an older cloakrcs have no stored frequency grid or reader warnings: read them again
+    manifest = write_campaign(tmp_path / "c", "old", [("r1", "R1", 0.1)])
+    assert main(["process", str(manifest), "--out", str(tmp_path / "a"), "--store", sqlite_url, "--quiet"]) == 0
+    with store.open_store(sqlite_url, write=True).begin() as s:
+        s.execute(text("UPDATE campaign_target SET frequency_hz = NULL, file_warnings = NULL"))
+    capsys.readouterr()
+    assert main(["process", str(manifest), "--out", str(tmp_path / "b"), "--store", sqlite_url, "--quiet"]) == 0
+    assert "taken from the store" not in capsys.readouterr().out
+    assert _outputs(tmp_path / "a") == _outputs(tmp_path / "b")
